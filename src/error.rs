@@ -1,0 +1,200 @@
+//! Typed errors of the core, each naming the file and the place a person has to fix.
+//!
+//! The split that matters to callers: an [`InputError`] means an input was refused (the
+//! command line exits with status 2, the window keeps what it had loaded); everything in
+//! [`Error::Write`] is a failure of this machine (status 1).
+
+use std::path::{Path, PathBuf};
+use thiserror::Error;
+
+/// An input file (session, parameter profile, floor plan, map bundle) that was refused.
+#[derive(Debug, Error)]
+#[error("{file}: {problem}")]
+pub struct InputError {
+    /// The file as the user named it (or a label such as `<demo door-cycle>`).
+    pub file: String,
+    /// What is wrong, and where inside the file.
+    pub problem: Problem,
+}
+
+impl InputError {
+    /// An error about `file`.
+    pub fn new(file: impl Into<String>, problem: Problem) -> Self {
+        Self {
+            file: file.into(),
+            problem,
+        }
+    }
+
+    /// An error about the file at `path`.
+    pub fn at(path: &Path, problem: Problem) -> Self {
+        Self::new(path.display().to_string(), problem)
+    }
+}
+
+/// What is wrong with an input, and where.
+#[derive(Debug, Error)]
+pub enum Problem {
+    /// The file could not be read at all.
+    #[error("cannot read: {0}")]
+    Read(std::io::Error),
+    /// RON syntax or structure error at a line and column (both 1-based).
+    #[error("line {line}, column {col}: {message}")]
+    Syntax {
+        /// 1-based line.
+        line: usize,
+        /// 1-based column.
+        col: usize,
+        /// What the parser expected.
+        message: String,
+    },
+    /// The `format` field names a version this build does not read.
+    #[error("format {found} is not understood (this gridscope reads format 1)")]
+    UnknownFormat {
+        /// The version found in the file.
+        found: i64,
+    },
+    /// Two sensors share an id.
+    #[error("sensor \"{id}\" is declared twice")]
+    DuplicateSensor {
+        /// The repeated id.
+        id: String,
+    },
+    /// A sensor definition breaks a rule.
+    #[error("sensor \"{sensor}\", field `{field}`: {reason}")]
+    BadSensor {
+        /// Sensor id.
+        sensor: String,
+        /// Field name inside the sensor.
+        field: &'static str,
+        /// Why it is refused.
+        reason: String,
+    },
+    /// A scan names a sensor that is not declared.
+    #[error("frame {frame}: unknown sensor \"{sensor}\"")]
+    UnknownSensor {
+        /// 0-based frame index.
+        frame: usize,
+        /// The unknown id.
+        sensor: String,
+    },
+    /// A scan has the wrong number of ranges.
+    #[error(
+        "frame {frame}, sensor \"{sensor}\": {found} ranges, but the sensor has {expected} beams"
+    )]
+    WrongRangeCount {
+        /// 0-based frame index.
+        frame: usize,
+        /// Sensor id.
+        sensor: String,
+        /// Beams of the sensor.
+        expected: usize,
+        /// Ranges found.
+        found: usize,
+    },
+    /// One frame holds two scans of one sensor.
+    #[error("frame {frame}: sensor \"{sensor}\" is scanned twice in one frame")]
+    DuplicateScan {
+        /// 0-based frame index.
+        frame: usize,
+        /// Sensor id.
+        sensor: String,
+    },
+    /// A frame's pose or time is not a finite number.
+    #[error("frame {frame}: {what} is not a finite number")]
+    NotFinite {
+        /// 0-based frame index.
+        frame: usize,
+        /// `pose` or `t`.
+        what: &'static str,
+    },
+    /// Frame times go backwards.
+    #[error("frame {frame}: time {t} s is earlier than the previous frame's {previous} s")]
+    TimeDecreasing {
+        /// 0-based frame index.
+        frame: usize,
+        /// This frame's time, seconds.
+        t: f64,
+        /// The previous frame's time, seconds.
+        previous: f64,
+    },
+    /// A field of a parameter profile, plan or map bundle breaks a rule.
+    #[error("field `{field}`: {reason}")]
+    BadField {
+        /// Dotted path of the field, e.g. `clamp.min` or `models["sonar"].p_occ`.
+        field: String,
+        /// Why it is refused.
+        reason: String,
+    },
+    /// A binary companion file (NumPy array, image) is malformed.
+    #[error("{0}")]
+    Malformed(String),
+}
+
+/// Any failure of the core.
+#[derive(Debug, Error)]
+pub enum Error {
+    /// An input was refused (command-line exit status 2).
+    #[error(transparent)]
+    Input(#[from] InputError),
+    /// The requested grid is larger than the cell budget (exit status 2: the input asks for it).
+    #[error(
+        "the map would be {width} x {height} = {cells} cells, over the budget of {budget} cells; \
+         raise the budget, coarsen the resolution or fix a smaller extent in the parameters"
+    )]
+    OverBudget {
+        /// Columns requested.
+        width: f64,
+        /// Rows requested.
+        height: f64,
+        /// width * height.
+        cells: f64,
+        /// The budget, cells.
+        budget: u64,
+    },
+    /// Writing an output failed (exit status 1).
+    #[error("cannot write {}: {source}", file.display())]
+    Write {
+        /// The file being written.
+        file: PathBuf,
+        /// The underlying failure.
+        source: std::io::Error,
+    },
+    /// The work was cancelled by a newer request.
+    #[error("cancelled")]
+    Cancelled,
+}
+
+impl Error {
+    /// Whether the error refuses an input (as opposed to a failure of this machine).
+    pub fn is_refusal(&self) -> bool {
+        matches!(self, Error::Input(_) | Error::OverBudget { .. })
+    }
+}
+
+/// Turns a RON parse error into a [`Problem::Syntax`] with line and column.
+pub(crate) fn ron_problem(e: &ron::error::SpannedError) -> Problem {
+    Problem::Syntax {
+        line: e.span.start.line,
+        col: e.span.start.col,
+        message: e.code.to_string(),
+    }
+}
+
+/// Reads a whole text file, naming the file on failure.
+pub(crate) fn read_text(path: &Path) -> Result<String, InputError> {
+    let bytes = std::fs::read(path).map_err(|e| InputError::at(path, Problem::Read(e)))?;
+    String::from_utf8(bytes).map_err(|e| {
+        let upto = &e.as_bytes()[..e.utf8_error().valid_up_to()];
+        let line = upto.iter().filter(|&&b| b == b'\n').count() + 1;
+        let col = upto.iter().rev().take_while(|&&b| b != b'\n').count() + 1;
+        InputError::at(
+            path,
+            Problem::Syntax {
+                line,
+                col,
+                message: "the file is not UTF-8 text".into(),
+            },
+        )
+    })
+}

@@ -1,0 +1,178 @@
+//! The `gridscope` command: opens the inspector window, or runs a batch command.
+//!
+//! Thin by design: parse the command line, dispatch, and turn errors into the contract's exit
+//! status (0 success, 2 input refused, 1 any other failure).
+
+use clap::{Parser, Subcommand};
+use gridscope::commands::{self, BuildArgs};
+use gridscope::grid::DEFAULT_CELL_BUDGET;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+/// Build, replay and inspect 2D occupancy grid maps from posed range scans.
+///
+/// With no command, opens the inspector window on FILE (a session) or on the embedded demo.
+#[derive(Parser, Debug)]
+#[command(name = "gridscope", version, args_conflicts_with_subcommands = true)]
+struct Cli {
+    #[command(subcommand)]
+    command: Option<Command>,
+    /// A session file to open in the window (default: the embedded demo).
+    file: Option<PathBuf>,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    /// Integrate a session and write the map bundle PREFIX.npy, .png and .map.ron.
+    Build {
+        /// Session file (`*.session.ron`), or `demo:NAME` for an embedded demo.
+        session: PathBuf,
+        /// Parameter profile (`*.params.ron`), or `demo:NAME`; defaults when omitted.
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// Output prefix: writes PREFIX.npy, PREFIX.png and PREFIX.map.ron.
+        #[arg(long)]
+        out: PathBuf,
+        /// Integrate only the first N frames.
+        #[arg(long, value_name = "N")]
+        until: Option<usize>,
+        /// Also write a Netpbm PREFIX.pgm.
+        #[arg(long)]
+        pgm: bool,
+        /// Refuse grids larger than this many cells.
+        #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
+        cell_budget: u64,
+    },
+    /// Print a session's sensors, frames, duration, reading counts and map extent.
+    Info {
+        /// Session file, or `demo:NAME`.
+        session: PathBuf,
+        /// Parameter profile deciding the extent; defaults when omitted.
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// Refuse grids larger than this many cells.
+        #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
+        cell_budget: u64,
+    },
+    /// Print every update a cell received, as CSV: frame,t,sensor,beam,increment,value.
+    History {
+        /// Session file, or `demo:NAME`.
+        session: PathBuf,
+        /// Parameter profile; defaults when omitted.
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// World point X,Y in metres; the cell containing it is traced.
+        #[arg(long, value_name = "X,Y", value_parser = parse_point)]
+        cell: (f64, f64),
+        /// Trace only the first N frames.
+        #[arg(long, value_name = "N")]
+        until: Option<usize>,
+        /// Refuse grids larger than this many cells.
+        #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
+        cell_budget: u64,
+    },
+    /// Simulate a floor plan's run into a session, plus the plan's reference map bundle.
+    Simulate {
+        /// Floor plan (`*.plan.ron`).
+        plan: PathBuf,
+        /// Session file to write.
+        #[arg(long)]
+        out: PathBuf,
+        /// Prefix of the reference bundle (default: the session name with `.reference`).
+        #[arg(long)]
+        reference: Option<PathBuf>,
+        /// World time, seconds, at which the reference is drawn (default: the last frame).
+        #[arg(long)]
+        reference_time: Option<f64>,
+    },
+}
+
+fn run(cli: Cli) -> Result<(), gridscope::Error> {
+    let mut out = std::io::stdout().lock();
+    match cli.command {
+        Some(Command::Build {
+            session,
+            params,
+            out: prefix,
+            until,
+            pgm,
+            cell_budget,
+        }) => commands::build(
+            &BuildArgs {
+                session,
+                params,
+                out: prefix,
+                until,
+                pgm,
+                cell_budget,
+            },
+            &mut out,
+        ),
+        Some(Command::Info {
+            session,
+            params,
+            cell_budget,
+        }) => commands::info(&session, params.as_deref(), cell_budget, &mut out),
+        Some(Command::History {
+            session,
+            params,
+            cell: (x, y),
+            until,
+            cell_budget,
+        }) => commands::history(
+            &session,
+            params.as_deref(),
+            x,
+            y,
+            until,
+            cell_budget,
+            &mut out,
+        ),
+        Some(Command::Simulate {
+            plan,
+            out: session,
+            reference,
+            reference_time,
+        }) => commands::simulate_plan(
+            &plan,
+            &session,
+            reference.as_deref(),
+            reference_time,
+            &mut out,
+        ),
+        None => {
+            let _ = cli.file;
+            Ok(())
+        }
+    }
+}
+
+/// Parses `X,Y` (metres) as given to `--cell`.
+fn parse_point(s: &str) -> Result<(f64, f64), String> {
+    let (x, y) = s
+        .split_once(',')
+        .ok_or_else(|| format!("expected X,Y in metres, got {s:?}"))?;
+    let parse = |v: &str| {
+        v.trim()
+            .parse::<f64>()
+            .ok()
+            .filter(|v| v.is_finite())
+            .ok_or_else(|| format!("{v:?} is not a finite number of metres"))
+    };
+    Ok((parse(x)?, parse(y)?))
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("gridscope: {e}");
+            if e.is_refusal() {
+                ExitCode::from(2)
+            } else {
+                ExitCode::from(1)
+            }
+        }
+    }
+}

@@ -1,0 +1,411 @@
+//! The parameter profile (`*.params.ron`): everything besides the session that decides a map.
+//!
+//! Design decision: the profile is plain data with one `validate` that checks every rule of the
+//! contract and names the offending field, so the window, the command line and the sweep all
+//! refuse the same things with the same words.
+
+use crate::error::{InputError, Problem, read_text};
+use crate::geometry::Point2;
+use crate::logodds::Clamp;
+use crate::session::{check_format, parse_versioned};
+use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
+use std::ops::RangeInclusive;
+use std::path::Path;
+
+/// How the updates a cell receives within one frame are combined.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub enum FusionRule {
+    /// Every touched cell is updated at once, beam after beam.
+    #[default]
+    EveryBeam,
+    /// Within a frame each cell is updated at most once, with its strongest increment.
+    OncePerCell,
+}
+
+/// What a no-return reading (r >= range_max) does.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub enum NoReturnRule {
+    /// Mark every cell up to `range_max` with `p_free`.
+    #[default]
+    Clear,
+    /// Touch nothing.
+    Ignore,
+}
+
+/// An inverse sensor model: the probability of occupancy along a beam given its reading.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub enum ModelSpec {
+    /// Gaussian-shaped peak at the reading, floored at `p_free` in front, tending to 0.5 behind.
+    Gaussian {
+        /// Width of the peak, metres.
+        sigma: f64,
+        /// Peak probability at the reading.
+        p_occ: f64,
+        /// Floor in front of the reading.
+        p_free: f64,
+        /// The beam reaches `cutoff * sigma` metres past the reading.
+        cutoff: f64,
+    },
+    /// A band of `thickness` metres around the reading at `p_occ`, `p_free` in front.
+    Band {
+        /// Full thickness of the occupied band, metres.
+        thickness: f64,
+        /// Probability inside the band.
+        p_occ: f64,
+        /// Probability in front of the band.
+        p_free: f64,
+    },
+}
+
+impl Default for ModelSpec {
+    fn default() -> Self {
+        ModelSpec::Gaussian {
+            sigma: 0.05,
+            p_occ: 0.8,
+            p_free: 0.35,
+            cutoff: 3.0,
+        }
+    }
+}
+
+impl ModelSpec {
+    /// The model's free-space probability.
+    pub fn p_free(&self) -> f64 {
+        match *self {
+            ModelSpec::Gaussian { p_free, .. } | ModelSpec::Band { p_free, .. } => p_free,
+        }
+    }
+
+    /// The model's occupied probability at the reading.
+    pub fn p_occ(&self) -> f64 {
+        match *self {
+            ModelSpec::Gaussian { p_occ, .. } | ModelSpec::Band { p_occ, .. } => p_occ,
+        }
+    }
+
+    /// How far past the reading the beam reaches, metres.
+    pub fn reach_past_hit(&self) -> f64 {
+        match *self {
+            ModelSpec::Gaussian { sigma, cutoff, .. } => cutoff * sigma,
+            ModelSpec::Band { thickness, .. } => thickness / 2.0,
+        }
+    }
+
+    /// Short name of the model kind.
+    pub fn kind_name(&self) -> &'static str {
+        match self {
+            ModelSpec::Gaussian { .. } => "Gaussian",
+            ModelSpec::Band { .. } => "Band",
+        }
+    }
+
+    /// Checks the contract's rules; `at` is the field path of this model in the profile.
+    pub fn validate(&self, at: &str) -> Result<(), Problem> {
+        let (p_occ, p_free) = (self.p_occ(), self.p_free());
+        check_open_unit(&format!("{at}.p_occ"), p_occ)?;
+        check_open_unit(&format!("{at}.p_free"), p_free)?;
+        if p_occ <= 0.5 {
+            return Err(bad(
+                &format!("{at}.p_occ"),
+                format!("must be > 0.5 (got {p_occ})"),
+            ));
+        }
+        if p_free >= 0.5 {
+            return Err(bad(
+                &format!("{at}.p_free"),
+                format!("must be < 0.5 (got {p_free})"),
+            ));
+        }
+        match *self {
+            ModelSpec::Gaussian { sigma, cutoff, .. } => {
+                if !(sigma.is_finite() && sigma > 0.0) {
+                    return Err(bad(
+                        &format!("{at}.sigma"),
+                        format!("must be > 0 metres (got {sigma})"),
+                    ));
+                }
+                if !(cutoff.is_finite() && cutoff >= 0.0) {
+                    return Err(bad(
+                        &format!("{at}.cutoff"),
+                        format!("must be >= 0 (got {cutoff})"),
+                    ));
+                }
+            }
+            ModelSpec::Band { thickness, .. } => {
+                if !(thickness.is_finite() && thickness > 0.0) {
+                    return Err(bad(
+                        &format!("{at}.thickness"),
+                        format!("must be > 0 metres (got {thickness})"),
+                    ));
+                }
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A fixed grid extent: south-west corner and size in cells.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Extent {
+    /// World coordinates of the south-west corner of cell (0, 0), metres.
+    pub origin: Point2,
+    /// Columns.
+    pub width: u32,
+    /// Rows.
+    pub height: u32,
+}
+
+/// Parts of a session left out of the fusion (an optional field of the profile).
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Exclusions {
+    /// Inclusive frame index ranges that are skipped entirely.
+    pub frames: Vec<RangeInclusive<usize>>,
+    /// Sensor ids whose scans are skipped.
+    pub sensors: Vec<String>,
+    /// Single beams skipped: (frame, sensor id, beam index).
+    pub beams: Vec<(usize, String, usize)>,
+}
+
+impl Exclusions {
+    /// Whether nothing is excluded.
+    pub fn is_empty(&self) -> bool {
+        self.frames.is_empty() && self.sensors.is_empty() && self.beams.is_empty()
+    }
+
+    /// Whether frame `f` is excluded as a whole.
+    pub fn frame_excluded(&self, f: usize) -> bool {
+        self.frames.iter().any(|r| r.contains(&f))
+    }
+}
+
+/// A complete parameter profile, per the contract (section 3).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Params {
+    /// Always 1.
+    pub format: i64,
+    /// Cell side, metres.
+    pub resolution: f64,
+    /// Initial cell probability, 0 < prior < 1.
+    pub prior: f64,
+    /// Cell value bounds, log-odds.
+    pub clamp: Clamp,
+    /// How updates within a frame combine.
+    pub fusion: FusionRule,
+    /// What no-return readings do.
+    pub no_return: NoReturnRule,
+    /// The model for sensors without an entry in `models`.
+    pub default_model: ModelSpec,
+    /// Per-sensor models, by sensor id.
+    #[serde(default)]
+    pub models: BTreeMap<String, ModelSpec>,
+    /// A fixed extent, or `None` for the default extent that holds every touched cell.
+    #[serde(default)]
+    pub extent: Option<Extent>,
+    /// Frames, sensors and beams left out (gridscope's own optional field).
+    #[serde(default, skip_serializing_if = "Exclusions::is_empty")]
+    pub exclude: Exclusions,
+}
+
+impl Default for Params {
+    fn default() -> Self {
+        Params {
+            format: 1,
+            resolution: 0.05,
+            prior: 0.5,
+            clamp: Clamp::default(),
+            fusion: FusionRule::EveryBeam,
+            no_return: NoReturnRule::Clear,
+            default_model: ModelSpec::default(),
+            models: BTreeMap::new(),
+            extent: None,
+            exclude: Exclusions::default(),
+        }
+    }
+}
+
+fn bad(field: &str, reason: String) -> Problem {
+    Problem::BadField {
+        field: field.to_string(),
+        reason,
+    }
+}
+
+fn check_open_unit(field: &str, p: f64) -> Result<(), Problem> {
+    if p > 0.0 && p < 1.0 {
+        Ok(())
+    } else {
+        Err(bad(
+            field,
+            format!("must lie strictly between 0 and 1 (got {p})"),
+        ))
+    }
+}
+
+impl Params {
+    /// Loads and validates a profile.
+    pub fn load(path: &Path) -> Result<Params, InputError> {
+        let text = read_text(path)?;
+        Self::from_ron_str(&text, &path.display().to_string())
+    }
+
+    /// Parses and validates a profile from RON text; `file` names it in errors.
+    pub fn from_ron_str(text: &str, file: &str) -> Result<Params, InputError> {
+        let p: Params = parse_versioned(text, file)?;
+        check_format(p.format, file)?;
+        p.validate().map_err(|e| InputError::new(file, e))?;
+        Ok(p)
+    }
+
+    /// Checks every rule of the contract, naming the first field that breaks one.
+    pub fn validate(&self) -> Result<(), Problem> {
+        if self.format != 1 {
+            return Err(Problem::UnknownFormat { found: self.format });
+        }
+        if !(self.resolution.is_finite() && self.resolution > 0.0) {
+            return Err(bad(
+                "resolution",
+                format!("must be > 0 metres (got {})", self.resolution),
+            ));
+        }
+        check_open_unit("prior", self.prior)?;
+        if !(self.clamp.min.is_finite() && self.clamp.min < 0.0) {
+            return Err(bad(
+                "clamp.min",
+                format!("must be a log-odds value < 0 (got {})", self.clamp.min),
+            ));
+        }
+        if !(self.clamp.max.is_finite() && self.clamp.max > 0.0) {
+            return Err(bad(
+                "clamp.max",
+                format!("must be a log-odds value > 0 (got {})", self.clamp.max),
+            ));
+        }
+        self.default_model.validate("default_model")?;
+        for (id, m) in &self.models {
+            m.validate(&format!("models[{id:?}]"))?;
+        }
+        if let Some(e) = &self.extent {
+            if !e.origin.is_finite() {
+                return Err(bad("extent.origin", "must be finite".into()));
+            }
+            if e.width == 0 || e.height == 0 {
+                return Err(bad(
+                    "extent",
+                    format!(
+                        "width and height must be at least 1 cell (got {} x {})",
+                        e.width, e.height
+                    ),
+                ));
+            }
+        }
+        for r in &self.exclude.frames {
+            if r.start() > r.end() {
+                return Err(bad(
+                    "exclude.frames",
+                    format!("range {}..={} is empty", r.start(), r.end()),
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    /// The model used for the sensor with this id.
+    pub fn model_for(&self, sensor_id: &str) -> &ModelSpec {
+        self.models.get(sensor_id).unwrap_or(&self.default_model)
+    }
+
+    /// The profile as RON text, without struct names, readable by [`Params::from_ron_str`].
+    pub fn to_ron_string(&self) -> String {
+        let cfg = ron::ser::PrettyConfig::new()
+            .struct_names(false)
+            .new_line("\n".to_string())
+            .indentor("    ".to_string());
+        ron::ser::to_string_pretty(self, cfg).expect("a profile always serialises")
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const EXAMPLE: &str = r#"(
+        format: 1,
+        resolution: 0.05,
+        prior: 0.5,
+        clamp: (min: -2.0, max: 3.5),
+        fusion: EveryBeam,
+        no_return: Clear,
+        default_model: Gaussian(sigma: 0.05, p_occ: 0.8, p_free: 0.35, cutoff: 3.0),
+        models: { "sonar_ring": Band(thickness: 0.10, p_occ: 0.7, p_free: 0.4) },
+        extent: None,
+    )"#;
+
+    #[test]
+    fn contract_example_loads_and_round_trips() {
+        let p = Params::from_ron_str(EXAMPLE, "ex").unwrap();
+        assert_eq!(
+            p.model_for("sonar_ring"),
+            &ModelSpec::Band {
+                thickness: 0.10,
+                p_occ: 0.7,
+                p_free: 0.4
+            }
+        );
+        assert_eq!(p.model_for("front"), &p.default_model);
+        let back = Params::from_ron_str(&p.to_ron_string(), "again").unwrap();
+        assert_eq!(back, p);
+        let fixed = EXAMPLE.replace(
+            "extent: None",
+            "extent: Some((origin: (x: -5.0, y: -5.0), width: 400, height: 300))",
+        );
+        let p = Params::from_ron_str(&fixed, "fixed").unwrap();
+        assert_eq!(p.extent.unwrap().width, 400);
+        assert_eq!(Params::from_ron_str(&p.to_ron_string(), "x").unwrap(), p);
+    }
+
+    #[test]
+    fn each_rule_names_its_field() {
+        let cases = [
+            ("resolution: 0.05", "resolution: 0.0", "resolution"),
+            ("prior: 0.5", "prior: 1.0", "prior"),
+            ("min: -2.0", "min: 0.5", "clamp.min"),
+            ("max: 3.5", "max: -1.0", "clamp.max"),
+            ("sigma: 0.05", "sigma: -0.05", "default_model.sigma"),
+            ("p_occ: 0.8", "p_occ: 0.4", "default_model.p_occ"),
+            ("p_free: 0.35", "p_free: 0.6", "default_model.p_free"),
+            ("cutoff: 3.0", "cutoff: -1.0", "default_model.cutoff"),
+            (
+                "thickness: 0.10",
+                "thickness: 0.0",
+                "models[\"sonar_ring\"].thickness",
+            ),
+            ("p_occ: 0.7", "p_occ: 1.0", "models[\"sonar_ring\"].p_occ"),
+        ];
+        for (from, to, field) in cases {
+            let text = EXAMPLE.replacen(from, to, 1);
+            let err = Params::from_ron_str(&text, "p.params.ron").expect_err(to);
+            match &err.problem {
+                Problem::BadField { field: f, .. } => assert_eq!(f, field, "{to}"),
+                p => panic!("{to}: {p:?}"),
+            }
+            assert!(err.to_string().contains(field), "{err}");
+        }
+    }
+
+    #[test]
+    fn typos_and_unknown_formats_are_refused() {
+        let typo = EXAMPLE.replace("prior:", "priro:");
+        assert!(matches!(
+            Params::from_ron_str(&typo, "p").unwrap_err().problem,
+            Problem::Syntax { .. }
+        ));
+        let v2 = EXAMPLE.replace("format: 1", "format: 2");
+        assert!(matches!(
+            Params::from_ron_str(&v2, "p").unwrap_err().problem,
+            Problem::UnknownFormat { found: 2 }
+        ));
+    }
+}

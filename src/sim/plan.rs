@@ -1,0 +1,248 @@
+//! Floor plans (`*.plan.ron`): walls, timed changes, free space, a route and sensors with noise.
+//!
+//! A plan is our own scenario format: everything the simulator needs to produce a session and
+//! its reference map. Walls are segments; a wall may be glass (narrow beams mostly pass
+//! through it, wide beams reflect) and may exist only between two times (a door).
+
+use crate::error::{InputError, Problem, read_text};
+use crate::geometry::Point2;
+use crate::session::{Sensor, check_format, parse_versioned};
+use serde::{Deserialize, Serialize};
+use std::path::Path;
+
+/// What a wall is made of.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+pub enum Material {
+    /// Reflects every beam.
+    #[default]
+    Solid,
+    /// Narrow (`Ray`) beams pass through with probability `pass`; wide (`Cone`) beams reflect.
+    Glass {
+        /// Probability, 0..=1, that a narrow beam passes through.
+        pass: f64,
+    },
+}
+
+/// A time window in seconds, `from <= t < until`.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct Window {
+    /// Start, seconds.
+    pub from: f64,
+    /// End (exclusive), seconds.
+    pub until: f64,
+}
+
+/// One wall segment, world metres.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Wall {
+    /// One end.
+    pub a: Point2,
+    /// The other end.
+    pub b: Point2,
+    /// What it is made of.
+    #[serde(default)]
+    pub material: Material,
+    /// When the wall exists; `None` means always.
+    #[serde(default)]
+    pub present: Option<Window>,
+    /// A name shown in documentation and tests (e.g. "door D1").
+    #[serde(default)]
+    pub label: String,
+}
+
+impl Wall {
+    /// Whether the wall exists at time `t` seconds.
+    pub fn exists_at(&self, t: f64) -> bool {
+        self.present.is_none_or(|w| t >= w.from && t < w.until)
+    }
+}
+
+/// The robot's route: waypoints driven in straight lines, turning in place at each.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Route {
+    /// Points visited in order, metres; at least two.
+    pub waypoints: Vec<Point2>,
+    /// Driving speed, m/s.
+    pub speed: f64,
+    /// Turning speed in place, rad/s.
+    pub turn_rate: f64,
+    /// Frames per second.
+    pub rate: f64,
+}
+
+/// Range noise of one simulated sensor.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Noise {
+    /// Standard deviation of additive Gaussian range noise, metres.
+    pub sigma: f64,
+    /// Probability that a reading is invalid (reported as 0, below any range_min).
+    pub dropout: f64,
+    /// Probability that a beam returns nothing (reported as range_max).
+    pub miss: f64,
+}
+
+/// A sensor of the simulated robot and its noise.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SimSensor {
+    /// The sensor as it will appear in the session.
+    pub sensor: Sensor,
+    /// Its noise.
+    #[serde(default)]
+    pub noise: Noise,
+    /// `Cone` sensors: sub-rays cast across the opening to find the nearest echo.
+    #[serde(default = "default_cone_rays")]
+    pub cone_rays: u32,
+}
+
+fn default_cone_rays() -> u32 {
+    9
+}
+
+/// A complete simulation scenario.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FloorPlan {
+    /// Always 1.
+    pub format: i64,
+    /// Scenario name, becomes the session name.
+    pub name: String,
+    /// Free text, becomes the session notes.
+    #[serde(default)]
+    pub notes: String,
+    /// Wall segments.
+    pub walls: Vec<Wall>,
+    /// Polygons (world metres) of free space for the reference map: a cell is free when its
+    /// centre lies inside an odd number of them (a polygon inside another is a hole) and no
+    /// wall crosses it.
+    #[serde(default)]
+    pub free_space: Vec<Vec<Point2>>,
+    /// The robot's route.
+    pub route: Route,
+    /// The robot's sensors.
+    pub sensors: Vec<SimSensor>,
+    /// Seed of the noise generator.
+    #[serde(default)]
+    pub seed: u64,
+    /// Cell side of the reference map, metres.
+    #[serde(default = "default_reference_resolution")]
+    pub reference_resolution: f64,
+}
+
+fn default_reference_resolution() -> f64 {
+    0.05
+}
+
+fn bad(field: String, reason: impl Into<String>) -> Problem {
+    Problem::BadField {
+        field,
+        reason: reason.into(),
+    }
+}
+
+impl FloorPlan {
+    /// Loads and validates a plan.
+    pub fn load(path: &Path) -> Result<FloorPlan, InputError> {
+        let text = read_text(path)?;
+        Self::from_ron_str(&text, &path.display().to_string())
+    }
+
+    /// Parses and validates a plan from RON text; `file` names it in errors.
+    pub fn from_ron_str(text: &str, file: &str) -> Result<FloorPlan, InputError> {
+        let p: FloorPlan = parse_versioned(text, file)?;
+        check_format(p.format, file)?;
+        p.validate().map_err(|e| InputError::new(file, e))?;
+        Ok(p)
+    }
+
+    /// Checks every field, naming the first that is wrong.
+    pub fn validate(&self) -> Result<(), Problem> {
+        for (i, w) in self.walls.iter().enumerate() {
+            if !w.a.is_finite() || !w.b.is_finite() {
+                return Err(bad(format!("walls[{i}]"), "end points must be finite"));
+            }
+            if w.a == w.b {
+                return Err(bad(format!("walls[{i}]"), "the two ends coincide"));
+            }
+            if let Material::Glass { pass } = w.material
+                && !(0.0..=1.0).contains(&pass)
+            {
+                return Err(bad(
+                    format!("walls[{i}].material.pass"),
+                    "must lie in [0, 1]",
+                ));
+            }
+            if let Some(win) = w.present
+                && !(win.from.is_finite() && win.until.is_finite() && win.from < win.until)
+            {
+                return Err(bad(
+                    format!("walls[{i}].present"),
+                    "needs finite times with from < until",
+                ));
+            }
+        }
+        for (i, poly) in self.free_space.iter().enumerate() {
+            if poly.len() < 3 || poly.iter().any(|p| !p.is_finite()) {
+                return Err(bad(
+                    format!("free_space[{i}]"),
+                    "a polygon needs at least three finite points",
+                ));
+            }
+        }
+        let r = &self.route;
+        if r.waypoints.len() < 2 || r.waypoints.iter().any(|p| !p.is_finite()) {
+            return Err(bad(
+                "route.waypoints".into(),
+                "needs at least two finite points",
+            ));
+        }
+        for (field, v) in [
+            ("route.speed", r.speed),
+            ("route.turn_rate", r.turn_rate),
+            ("route.rate", r.rate),
+        ] {
+            if !(v.is_finite() && v > 0.0) {
+                return Err(bad(field.into(), format!("must be > 0 (got {v})")));
+            }
+        }
+        if self.sensors.is_empty() {
+            return Err(bad("sensors".into(), "the robot needs at least one sensor"));
+        }
+        for (i, s) in self.sensors.iter().enumerate() {
+            let n = s.noise;
+            if !(n.sigma.is_finite() && n.sigma >= 0.0) {
+                return Err(bad(
+                    format!("sensors[{i}].noise.sigma"),
+                    "must be >= 0 metres",
+                ));
+            }
+            for (field, p) in [("dropout", n.dropout), ("miss", n.miss)] {
+                if !(0.0..=1.0).contains(&p) {
+                    return Err(bad(
+                        format!("sensors[{i}].noise.{field}"),
+                        "must lie in [0, 1]",
+                    ));
+                }
+            }
+            if s.cone_rays == 0 || s.cone_rays > 1000 {
+                return Err(bad(
+                    format!("sensors[{i}].cone_rays"),
+                    "must lie in 1..=1000",
+                ));
+            }
+        }
+        if !(self.reference_resolution.is_finite() && self.reference_resolution > 0.0) {
+            return Err(bad("reference_resolution".into(), "must be > 0 metres"));
+        }
+        // Sensor rules are the session's rules.
+        crate::session::Session::with_sensors(
+            String::new(),
+            String::new(),
+            self.sensors.iter().map(|s| s.sensor.clone()).collect(),
+        )?;
+        Ok(())
+    }
+}

@@ -55,7 +55,8 @@ pub struct BuildArgs {
 pub fn build(args: &BuildArgs, out: &mut dyn Write) -> Result<(), Error> {
     let session = Arc::new(load_session(&args.session)?);
     let params = load_params(args.params.as_deref())?;
-    let builder = MapBuilder::with_budget(session.clone(), params.clone(), args.cell_budget)?;
+    let builder = MapBuilder::with_budget(session.clone(), params.clone(), args.cell_budget)
+        .map_err(|e| e.for_input(&args.session.display().to_string()))?;
     let frames = args
         .until
         .unwrap_or(session.frames.len())
@@ -127,7 +128,8 @@ pub fn info(
         "frames_with_invalid={}",
         st.frames_with_invalid.len()
     ));
-    let builder = MapBuilder::with_budget(session, params, budget)?;
+    let builder = MapBuilder::with_budget(session, params, budget)
+        .map_err(|e| e.for_input(&session_arg.display().to_string()))?;
     let g = builder.spec();
     w(format!(
         "extent={} x {} cells, resolution {} m, origin ({}, {}) m",
@@ -196,7 +198,8 @@ pub fn history(
 ) -> Result<(), Error> {
     let session = Arc::new(load_session(session_arg)?);
     let params = load_params(params_arg)?;
-    let builder = MapBuilder::with_budget(session.clone(), params, budget)?;
+    let builder = MapBuilder::with_budget(session.clone(), params, budget)
+        .map_err(|e| e.for_input(&session_arg.display().to_string()))?;
     let cell = builder.spec().cell_at(crate::geometry::Point2::new(x, y));
     let until = until.unwrap_or(session.frames.len());
     let _ = writeln!(out, "frame,t,sensor,beam,increment,value");

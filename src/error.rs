@@ -139,10 +139,16 @@ pub enum Error {
     Input(#[from] InputError),
     /// The requested grid is larger than the cell budget (exit status 2: the input asks for it).
     #[error(
-        "the map would be {width} x {height} = {cells} cells, over the budget of {budget} cells; \
-         raise the budget, coarsen the resolution or fix a smaller extent in the parameters"
+        "{}the map would be {} x {} = {} cells, over the budget of {budget} cells; \
+         raise the budget, coarsen the resolution or fix a smaller extent in the parameters",
+        source_label(input),
+        count(*width),
+        count(*height),
+        count(*cells)
     )]
     OverBudget {
+        /// The input whose beams or metadata ask for the grid, when known.
+        input: Option<String>,
         /// Columns requested.
         width: f64,
         /// Rows requested.
@@ -160,12 +166,48 @@ pub enum Error {
         /// The underlying failure.
         source: std::io::Error,
     },
+    /// The window could not be opened (no display, no OpenGL).
+    #[error("the window could not open: {0}")]
+    Window(String),
     /// The work was cancelled by a newer request.
     #[error("cancelled")]
     Cancelled,
 }
 
+fn source_label(input: &Option<String>) -> String {
+    input.as_ref().map(|i| format!("{i}: ")).unwrap_or_default()
+}
+
+/// A cell count as an integer when it is one of sensible size, else in scientific notation.
+fn count(v: f64) -> String {
+    if v.is_finite() && v.abs() < 1e15 {
+        format!("{}", v as i64)
+    } else {
+        format!("{v:.3e}")
+    }
+}
+
 impl Error {
+    /// Names the input an over-budget grid came from (other errors pass unchanged).
+    pub fn for_input(self, label: &str) -> Error {
+        match self {
+            Error::OverBudget {
+                width,
+                height,
+                cells,
+                budget,
+                ..
+            } => Error::OverBudget {
+                input: Some(label.to_string()),
+                width,
+                height,
+                cells,
+                budget,
+            },
+            other => other,
+        }
+    }
+
     /// Whether the error refuses an input (as opposed to a failure of this machine).
     pub fn is_refusal(&self) -> bool {
         matches!(self, Error::Input(_) | Error::OverBudget { .. })

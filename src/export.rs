@@ -19,7 +19,7 @@ use std::path::{Path, PathBuf};
 /// The caution every exported bundle and the README carry.
 pub const SAFETY_NOTICE: &str = "Maps made with gridscope are for development and inspection. \
 A map that a robot will navigate by must be validated under the local safety standards and the \
-site's own procedures before use.";
+procedures of the site where it will be used.";
 
 /// Row order of exported rasters; the contract knows one.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
@@ -41,7 +41,7 @@ pub struct Provenance {
 
 /// The metadata file as gridscope writes it.
 #[derive(Serialize)]
-struct MetaOut<'a> {
+struct MetaOut {
     format: i64,
     resolution: f64,
     width: u32,
@@ -51,12 +51,23 @@ struct MetaOut<'a> {
     values: &'static str,
     notice: &'static str,
     tool_version: &'static str,
-    #[serde(skip_serializing_if = "Option::is_none")]
-    session: Option<&'a str>,
-    #[serde(skip_serializing_if = "Option::is_none")]
-    frames: Option<usize>,
-    #[serde(skip_serializing_if = "Option::is_none")]
-    params: Option<&'a Params>,
+}
+
+/// The metadata file of a map built from a session: the same fields plus where it came from.
+#[derive(Serialize)]
+struct MetaOutBuilt<'a> {
+    format: i64,
+    resolution: f64,
+    width: u32,
+    height: u32,
+    origin: Point2,
+    rows: RowOrder,
+    values: &'static str,
+    notice: &'static str,
+    tool_version: &'static str,
+    session: &'a str,
+    frames: usize,
+    params: &'a Params,
 }
 
 /// The six fields a bundle reader needs; anything else in the file is ignored.
@@ -148,25 +159,46 @@ pub fn png_bytes(grid: &Grid) -> Result<Vec<u8>, String> {
 
 /// The `.map.ron` text for a grid.
 pub fn meta_text(spec: &GridSpec, provenance: Option<&Provenance>) -> String {
-    let meta = MetaOut {
-        format: 1,
-        resolution: spec.resolution,
-        width: spec.width,
-        height: spec.height,
-        origin: spec.origin,
-        rows: RowOrder::NorthFirst,
-        values: "log-odds of occupancy, float32, in PREFIX.npy",
-        notice: SAFETY_NOTICE,
-        tool_version: concat!("gridscope ", env!("CARGO_PKG_VERSION")),
-        session: provenance.map(|p| p.session.as_str()),
-        frames: provenance.map(|p| p.frames),
-        params: provenance.map(|p| &p.params),
-    };
+    const VALUES: &str = "log-odds of occupancy, float32, in PREFIX.npy";
+    const VERSION: &str = concat!("gridscope ", env!("CARGO_PKG_VERSION"));
     let cfg = ron::ser::PrettyConfig::new()
         .struct_names(false)
         .new_line("\n".to_string())
         .indentor("    ".to_string());
-    ron::ser::to_string_pretty(&meta, cfg).expect("metadata always serialises")
+    let text = match provenance {
+        None => ron::ser::to_string_pretty(
+            &MetaOut {
+                format: 1,
+                resolution: spec.resolution,
+                width: spec.width,
+                height: spec.height,
+                origin: spec.origin,
+                rows: RowOrder::NorthFirst,
+                values: VALUES,
+                notice: SAFETY_NOTICE,
+                tool_version: VERSION,
+            },
+            cfg,
+        ),
+        Some(p) => ron::ser::to_string_pretty(
+            &MetaOutBuilt {
+                format: 1,
+                resolution: spec.resolution,
+                width: spec.width,
+                height: spec.height,
+                origin: spec.origin,
+                rows: RowOrder::NorthFirst,
+                values: VALUES,
+                notice: SAFETY_NOTICE,
+                tool_version: VERSION,
+                session: &p.session,
+                frames: p.frames,
+                params: &p.params,
+            },
+            cfg,
+        ),
+    };
+    text.expect("metadata always serialises")
 }
 
 /// Writes several files so that either all appear under their final names or none does.
@@ -420,7 +452,8 @@ pub fn bundle_from_parts(
     budget: u64,
 ) -> Result<Grid, Error> {
     let spec = parse_meta(meta_text, meta_label)?;
-    GridSpec::check_budget(spec.width as f64, spec.height as f64, budget)?;
+    GridSpec::check_budget(spec.width as f64, spec.height as f64, budget)
+        .map_err(|e| e.for_input(meta_label))?;
     let malformed = |m: String| InputError::new(npy_label, Problem::Malformed(m));
     let (rows, cols, values) = read_npy_2d(npy).map_err(malformed)?;
     if rows != spec.height as usize || cols != spec.width as usize {

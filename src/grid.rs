@@ -116,6 +116,7 @@ impl GridSpec {
             Ok(())
         } else {
             Err(Error::OverBudget {
+                input: None,
                 width,
                 height,
                 cells,

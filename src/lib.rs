@@ -3,10 +3,10 @@
 //! The core reads in one sitting, in the order data flows: a [`session`] of posed scans, the
 //! [`footprint`] of each beam on the [`grid`], the inverse sensor [`model`] that turns a
 //! reading into log-odds increments, the [`fusion`] that adds them up with clamping, and the
-//! [`export`] of the finished map. [`sim`] makes sessions from floor plans of our own, and
+//! [`export`] of the finished map; [`replay`] seeks within a run. [`sim`] makes sessions from floor plans of our own, and
 //! [`commands`] holds the batch commands of the command line. Only [`app`] knows about the
 //! window; nothing else imports egui.
-
+pub mod app;
 pub mod commands;
 pub mod demo;
 pub mod error;
@@ -18,6 +18,7 @@ pub mod grid;
 pub mod logodds;
 pub mod model;
 pub mod params;
+pub mod replay;
 pub mod session;
 pub mod sim;
 

@@ -23,6 +23,14 @@ struct Cli {
 
 #[derive(Subcommand, Debug)]
 enum Command {
+    /// Open the inspector window on a session (or a floor plan, simulated first).
+    Open {
+        /// Session file (`*.session.ron`) or plan (`*.plan.ron`); the embedded demo if omitted.
+        file: Option<PathBuf>,
+        /// Parameter profile to apply.
+        #[arg(long)]
+        params: Option<PathBuf>,
+    },
     /// Integrate a session and write the map bundle PREFIX.npy, .png and .map.ron.
     Build {
         /// Session file (`*.session.ron`), or `demo:NAME` for an embedded demo.
@@ -140,11 +148,15 @@ fn run(cli: Cli) -> Result<(), gridscope::Error> {
             reference_time,
             &mut out,
         ),
-        None => {
-            let _ = cli.file;
-            Ok(())
-        }
+        Some(Command::Open { file, params }) => open_window(file, params),
+        None => open_window(cli.file, None),
     }
+}
+
+/// Runs the window until it closes; a failure to start it is not an input refusal.
+fn open_window(session: Option<PathBuf>, params: Option<PathBuf>) -> Result<(), gridscope::Error> {
+    gridscope::app::run(gridscope::app::Launch { session, params })
+        .map_err(gridscope::Error::Window)
 }
 
 /// Parses `X,Y` (metres) as given to `--cell`.

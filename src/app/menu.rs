@@ -1,0 +1,220 @@
+//! The menu bar and its file prompt: open, recent files, save, export, demos and view choices.
+//!
+//! Every file action goes through one small prompt window with a path field and a "Browse"
+//! button for the system file dialog, so the window works the same on a desktop and on a
+//! machine without a file-dialog service (the path field alone is enough).
+
+use super::palette::Palette;
+use super::settings::Settings;
+use super::{Action, Document, Source};
+use crate::demo::DEMOS;
+use std::path::PathBuf;
+
+/// What a file prompt is for.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Purpose {
+    /// Open a session, plan or parameter profile.
+    Open,
+    /// Save the parameter profile.
+    SaveParams,
+    /// Export the map bundle (a prefix).
+    ExportBundle,
+    /// Save the view as PNG.
+    ExportView,
+}
+
+impl Purpose {
+    fn title(self) -> &'static str {
+        match self {
+            Purpose::Open => "Open a session, plan or parameter file",
+            Purpose::SaveParams => "Save parameters",
+            Purpose::ExportBundle => "Export map bundle (prefix: writes .npy .png .pgm .map.ron)",
+            Purpose::ExportView => "Save the view as PNG",
+        }
+    }
+
+    fn action(self, path: PathBuf) -> Action {
+        match self {
+            Purpose::Open => Action::OpenAny(path),
+            Purpose::SaveParams => Action::SaveParams(path),
+            Purpose::ExportBundle => Action::ExportBundle(path),
+            Purpose::ExportView => Action::ExportView(path),
+        }
+    }
+}
+
+/// An open file prompt.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Prompt {
+    /// What the path is for.
+    pub purpose: Purpose,
+    /// The path typed so far.
+    pub text: String,
+}
+
+/// Menu state.
+#[derive(Default)]
+pub struct FileMenu {
+    /// The open prompt, if any.
+    pub prompt: Option<Prompt>,
+}
+
+fn default_stem(doc: Option<&Document>) -> String {
+    match doc.map(|d| &d.source) {
+        Some(Source::File(p)) => {
+            let s = p.to_string_lossy();
+            s.strip_suffix(".session.ron").unwrap_or(&s).to_string()
+        }
+        Some(Source::Demo(n)) => n.to_string(),
+        None => "map".into(),
+    }
+}
+
+impl FileMenu {
+    /// Opens the prompt for `purpose` with a suggested path.
+    pub fn open_prompt(&mut self, purpose: Purpose, doc: Option<&Document>) {
+        let stem = default_stem(doc);
+        let text = match purpose {
+            Purpose::Open => String::new(),
+            Purpose::SaveParams => doc
+                .and_then(|d| d.params_path.as_ref())
+                .map(|p| p.display().to_string())
+                .unwrap_or(format!("{stem}.params.ron")),
+            Purpose::ExportBundle => format!("{stem}.map"),
+            Purpose::ExportView => format!("{stem}.view.png"),
+        };
+        self.prompt = Some(Prompt { purpose, text });
+    }
+
+    /// Draws the menu bar (and the prompt window); returns what the user chose.
+    pub fn ui(
+        &mut self,
+        ui: &mut egui::Ui,
+        settings: &mut Settings,
+        doc: Option<&Document>,
+    ) -> Vec<Action> {
+        let mut actions = Vec::new();
+        egui::MenuBar::new().ui(ui, |ui| {
+            ui.menu_button("File", |ui| {
+                if ui.button("Open...").on_hover_text("A session (*.session.ron), a floor plan (*.plan.ron, simulated first) or a parameter profile (*.params.ron). Files dropped on the window open too.").clicked() {
+                    self.open_prompt(Purpose::Open, doc);
+                }
+                ui.menu_button("Recent sessions", |ui| {
+                    if settings.recent_sessions.is_empty() {
+                        ui.label("none yet");
+                    }
+                    for p in &settings.recent_sessions {
+                        if ui.button(p.display().to_string()).clicked() {
+                            actions.push(Action::OpenSession(p.clone()));
+                        }
+                    }
+                });
+                ui.menu_button("Recent parameters", |ui| {
+                    if settings.recent_params.is_empty() {
+                        ui.label("none yet");
+                    }
+                    for p in &settings.recent_params {
+                        if ui.button(p.display().to_string()).clicked() {
+                            actions.push(Action::OpenParams(p.clone()));
+                        }
+                    }
+                });
+                ui.separator();
+                let loaded = doc.is_some();
+                if ui.add_enabled(loaded, egui::Button::new("Save parameters...")).clicked() {
+                    self.open_prompt(Purpose::SaveParams, doc);
+                }
+                if ui.add_enabled(loaded, egui::Button::new("Export map bundle...")).on_hover_text("The grid after the current frame, with the parameters that made it").clicked() {
+                    self.open_prompt(Purpose::ExportBundle, doc);
+                }
+                if ui.add_enabled(loaded, egui::Button::new("Export view as PNG...")).on_hover_text("The map view as it appears on screen").clicked() {
+                    self.open_prompt(Purpose::ExportView, doc);
+                }
+            });
+            ui.menu_button("Demos", |ui| {
+                for d in DEMOS {
+                    if ui.button(d.name).on_hover_text(d.about).clicked() {
+                        actions.push(Action::OpenDemo(d.name));
+                    }
+                }
+            });
+            ui.menu_button("View", |ui| {
+                for p in [Palette::SandSlateInk, Palette::ExportGreys] {
+                    ui.radio_value(&mut settings.palette, p, p.label());
+                }
+                ui.separator();
+                ui.checkbox(&mut settings.show_beams, "Beams of the current frame");
+                ui.checkbox(&mut settings.show_path, "Robot path");
+                ui.checkbox(&mut settings.show_tuning, "Tuning panel");
+                ui.checkbox(&mut settings.show_inspector, "Inspector panel");
+                ui.separator();
+                ui.label("Drag to pan, scroll to zoom, double-click to fit.");
+            });
+        });
+        actions.extend(self.prompt_ui(ui));
+        actions
+    }
+
+    fn prompt_ui(&mut self, ui: &mut egui::Ui) -> Option<Action> {
+        let prompt = self.prompt.as_mut()?;
+        let mut done: Option<Option<Action>> = None;
+        let mut open = true;
+        egui::Window::new(prompt.purpose.title())
+            .open(&mut open)
+            .collapsible(false)
+            .resizable(false)
+            .anchor(egui::Align2::CENTER_TOP, egui::vec2(0.0, 80.0))
+            .show(ui.ctx(), |ui| {
+                ui.horizontal(|ui| {
+                    ui.label("path");
+                    let r =
+                        ui.add(egui::TextEdit::singleline(&mut prompt.text).desired_width(420.0));
+                    if r.lost_focus()
+                        && ui.input(|i| i.key_pressed(egui::Key::Enter))
+                        && !prompt.text.trim().is_empty()
+                    {
+                        done = Some(Some(
+                            prompt.purpose.action(PathBuf::from(prompt.text.trim())),
+                        ));
+                    }
+                    if ui
+                        .button("Browse...")
+                        .on_hover_text("Use the system file dialog")
+                        .clicked()
+                    {
+                        let dialog = rfd::FileDialog::new();
+                        let picked = match prompt.purpose {
+                            Purpose::Open => {
+                                dialog.add_filter("gridscope files", &["ron"]).pick_file()
+                            }
+                            _ => dialog.save_file(),
+                        };
+                        if let Some(p) = picked {
+                            prompt.text = p.display().to_string();
+                        }
+                    }
+                });
+                ui.horizontal(|ui| {
+                    let ok = !prompt.text.trim().is_empty();
+                    if ui.add_enabled(ok, egui::Button::new("OK")).clicked() {
+                        done = Some(Some(
+                            prompt.purpose.action(PathBuf::from(prompt.text.trim())),
+                        ));
+                    }
+                    if ui.button("Cancel").clicked() {
+                        done = Some(None);
+                    }
+                });
+            });
+        if !open {
+            done = Some(None);
+        }
+        match done {
+            Some(action) => {
+                self.prompt = None;
+                action
+            }
+            None => None,
+        }
+    }
+}

@@ -1,0 +1,85 @@
+//! What the window remembers between runs: recent files and display choices.
+//!
+//! Only plain data lives here, stored through eframe's persistence under one key; runtime
+//! handles (the worker, textures, caches) live in the application state instead.
+
+use super::palette::Palette;
+use serde::{Deserialize, Serialize};
+use std::path::{Path, PathBuf};
+
+/// Storage key of the settings.
+pub const SETTINGS_KEY: &str = "gridscope.settings";
+
+/// How many recent files each list keeps.
+const RECENT_LIMIT: usize = 10;
+
+/// User choices kept between runs.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(default)]
+pub struct Settings {
+    /// Session files opened, newest first.
+    pub recent_sessions: Vec<PathBuf>,
+    /// Parameter profiles opened or saved, newest first.
+    pub recent_params: Vec<PathBuf>,
+    /// Cell colouring.
+    pub palette: Palette,
+    /// Draw the current frame's beams.
+    pub show_beams: bool,
+    /// Draw the robot's path so far.
+    pub show_path: bool,
+    /// Playback speed relative to the session's own clock.
+    pub play_speed: f32,
+    /// Show the tuning panel on the left.
+    pub show_tuning: bool,
+    /// Show the inspector panel on the right.
+    pub show_inspector: bool,
+}
+
+impl Default for Settings {
+    fn default() -> Self {
+        Settings {
+            recent_sessions: Vec::new(),
+            recent_params: Vec::new(),
+            palette: Palette::default(),
+            show_beams: true,
+            show_path: true,
+            play_speed: 1.0,
+            show_tuning: true,
+            show_inspector: true,
+        }
+    }
+}
+
+/// Puts `path` first in `list`, without duplicates, keeping at most the limit.
+pub fn remember(list: &mut Vec<PathBuf>, path: &Path) {
+    list.retain(|p| p != path);
+    list.insert(0, path.to_path_buf());
+    list.truncate(RECENT_LIMIT);
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn recent_lists_move_to_front_and_stay_short() {
+        let mut v = Vec::new();
+        for i in 0..15 {
+            remember(&mut v, Path::new(&format!("s{i}.session.ron")));
+        }
+        remember(&mut v, Path::new("s10.session.ron"));
+        assert_eq!(v.len(), RECENT_LIMIT);
+        assert_eq!(v[0], PathBuf::from("s10.session.ron"));
+        assert_eq!(
+            v.iter().filter(|p| p.ends_with("s10.session.ron")).count(),
+            1
+        );
+    }
+
+    #[test]
+    fn old_settings_load_with_defaults() {
+        let s: Settings = ron::from_str("(play_speed: 2.0)").unwrap();
+        assert_eq!(s.play_speed, 2.0);
+        assert!(s.show_beams);
+    }
+}

@@ -1,0 +1,304 @@
+//! The tuning panel: every parameter of the profile, per-sensor inverse models, a live plot of
+//! the model along a beam, and how many contrary readings flip a saturated cell.
+//!
+//! Edits go into a draft. A draft that passes the profile's own validation is applied at once
+//! (the map rebuilds in the background); one that does not is shown with the reason and not
+//! applied, so the map always matches parameters that are valid.
+
+use super::{Action, Document};
+use crate::logodds::{logit, probability};
+use crate::model::{PreparedModel, cone_probability};
+use crate::{FusionRule, ModelSpec, NoReturnRule, Params, Reading, SensorKind};
+use egui::{Color32, RichText};
+use egui_plot::{HLine, Legend, Line, Plot, PlotPoints, VLine};
+
+/// Tuning panel state.
+#[derive(Default)]
+pub struct TuningPanel {
+    /// Parameters being edited; `None` means "the document's".
+    draft: Option<Params>,
+    /// Why the draft is not applied, if it is refused.
+    pub refusal: Option<String>,
+    /// Which sensor the plot and the flip readout describe.
+    focus: usize,
+}
+
+/// A probability of log-odds `l` in a form that never shows exactly 0 or 1.
+pub fn show_probability(l: f64) -> String {
+    let p = probability(l);
+    if p > 0.9999 {
+        format!("1 - {:.1e}", probability(-l))
+    } else if p < 0.0001 {
+        format!("{p:.1e}")
+    } else {
+        format!("{p:.4}")
+    }
+}
+
+/// A labelled slider with its own number field (typed values are not clamped to the slider
+/// range, so out-of-domain entries reach validation) and a tooltip. Returns whether it changed.
+fn number(
+    ui: &mut egui::Ui,
+    label: &str,
+    unit: &str,
+    value: &mut f64,
+    range: std::ops::RangeInclusive<f64>,
+    log: bool,
+    help: &str,
+) -> bool {
+    let mut s = egui::Slider::new(value, range)
+        .clamping(egui::SliderClamping::Never)
+        .logarithmic(log)
+        .max_decimals(4)
+        .text(label);
+    if !unit.is_empty() {
+        s = s.suffix(format!(" {unit}"));
+    }
+    ui.add(s).on_hover_text(help).changed()
+}
+
+/// Edits one inverse model; `key` keeps widget ids apart. Returns whether it changed.
+fn model_ui(ui: &mut egui::Ui, key: &str, m: &mut ModelSpec) -> bool {
+    let mut changed = false;
+    ui.horizontal(|ui| {
+        ui.label("model");
+        egui::ComboBox::from_id_salt(("model kind", key))
+            .selected_text(m.kind_name())
+            .show_ui(ui, |ui| {
+                let (p_occ, p_free) = (m.p_occ(), m.p_free());
+                if ui.selectable_label(matches!(m, ModelSpec::Gaussian { .. }), "Gaussian").clicked() && !matches!(m, ModelSpec::Gaussian { .. }) {
+                    *m = ModelSpec::Gaussian { sigma: 0.05, p_occ, p_free, cutoff: 3.0 };
+                    changed = true;
+                }
+                if ui.selectable_label(matches!(m, ModelSpec::Band { .. }), "Band").clicked() && !matches!(m, ModelSpec::Band { .. }) {
+                    *m = ModelSpec::Band { thickness: 0.1, p_occ, p_free };
+                    changed = true;
+                }
+            })
+            .response
+            .on_hover_text("Gaussian: a peak of width sigma at the reading, floored at p_free in front and fading to 0.5 behind.\nBand: p_occ within thickness/2 of the reading, p_free in front of it.");
+    });
+    ui.push_id(key, |ui| match m {
+        ModelSpec::Gaussian { sigma, p_occ, p_free, cutoff } => {
+            changed |= number(ui, "sigma", "m", sigma, 0.005..=0.5, true, "Width of the occupied peak around the reading, metres. Must be > 0.");
+            changed |= number(ui, "p_occ", "", p_occ, 0.5..=0.999, false, "Probability of occupancy at the reading itself. Must lie in (0.5, 1).");
+            changed |= number(ui, "p_free", "", p_free, 0.001..=0.5, false, "Probability of occupancy in front of the reading (free space). Must lie in (0, 0.5).");
+            changed |= number(ui, "cutoff", "sigma", cutoff, 0.0..=6.0, false, "How far past the reading the beam still touches cells, in multiples of sigma. Must be >= 0.");
+        }
+        ModelSpec::Band { thickness, p_occ, p_free } => {
+            changed |= number(ui, "thickness", "m", thickness, 0.01..=1.0, true, "Full thickness of the occupied band centred on the reading, metres. Must be > 0.");
+            changed |= number(ui, "p_occ", "", p_occ, 0.5..=0.999, false, "Probability of occupancy inside the band. Must lie in (0.5, 1).");
+            changed |= number(ui, "p_free", "", p_free, 0.001..=0.5, false, "Probability of occupancy in front of the band. Must lie in (0, 0.5).");
+        }
+    });
+    changed
+}
+
+impl TuningPanel {
+    /// Forgets the draft (after the document's parameters changed).
+    pub fn reset(&mut self) {
+        self.draft = None;
+        self.refusal = None;
+    }
+
+    /// The draft being edited, if it differs from the document's parameters.
+    pub fn draft(&self) -> Option<&Params> {
+        self.draft.as_ref()
+    }
+
+    /// Draws the panel. `selected` is the selected beam's sensor and reading, if any.
+    pub fn ui(
+        &mut self,
+        ui: &mut egui::Ui,
+        doc: &Document,
+        selected: Option<(usize, Reading)>,
+    ) -> Vec<Action> {
+        let mut draft = self.draft.take().unwrap_or_else(|| doc.params.clone());
+        if let Some((s, _)) = selected {
+            self.focus = s;
+        }
+        self.focus = self.focus.min(doc.session.sensors.len().saturating_sub(1));
+        let mut changed = false;
+        egui::ScrollArea::vertical().show(ui, |ui| {
+            ui.heading("Tuning");
+            if let Some(why) = &self.refusal {
+                ui.colored_label(Color32::from_rgb(255, 110, 90), RichText::new(format!("Not applied: {why}")).strong());
+                if ui.button("Revert to the applied parameters").clicked() {
+                    draft = doc.params.clone();
+                    self.refusal = None;
+                }
+            }
+            ui.separator();
+            ui.label(RichText::new("Grid").strong());
+            changed |= number(ui, "resolution", "m", &mut draft.resolution, 0.01..=0.5, true, "Cell side in metres. Must be > 0. Finer cells cost memory and time.");
+            changed |= number(ui, "prior", "", &mut draft.prior, 0.01..=0.99, false, "Initial probability of every cell, in (0, 1). It only sets the starting value; it is not subtracted from updates.");
+            ui.label(RichText::new("Clamp (log-odds)").strong());
+            changed |= number(ui, "min", "", &mut draft.clamp.min, -20.0..=-0.01, false, "Lower bound of a cell's log-odds; must be < 0. Closer to 0 lets a free cell turn occupied with fewer readings.");
+            changed |= number(ui, "max", "", &mut draft.clamp.max, 0.01..=60.0, false, "Upper bound of a cell's log-odds; must be > 0. Closer to 0 lets an occupied cell turn free with fewer readings (doors, moved pallets).");
+            if draft.clamp.min < 0.0 && draft.clamp.max > 0.0 {
+                ui.label(format!(
+                    "as probabilities: [{}, {}]",
+                    show_probability(draft.clamp.min),
+                    show_probability(draft.clamp.max)
+                ));
+            }
+            ui.horizontal(|ui| {
+                ui.label("fusion").on_hover_text("EveryBeam: each beam updates the cells it touches.\nOncePerCell: within one frame each cell takes only its strongest update.");
+                changed |= ui.radio_value(&mut draft.fusion, FusionRule::EveryBeam, "EveryBeam").changed();
+                changed |= ui.radio_value(&mut draft.fusion, FusionRule::OncePerCell, "OncePerCell").changed();
+            });
+            ui.horizontal(|ui| {
+                ui.label("no-return").on_hover_text("What a reading at or beyond range_max does.\nClear: mark every cell up to range_max with p_free.\nIgnore: touch nothing.");
+                changed |= ui.radio_value(&mut draft.no_return, NoReturnRule::Clear, "Clear").changed();
+                changed |= ui.radio_value(&mut draft.no_return, NoReturnRule::Ignore, "Ignore").changed();
+            });
+            ui.separator();
+            ui.label(RichText::new("Default model").strong()).on_hover_text("Used by every sensor without a model of its own.");
+            changed |= model_ui(ui, "default", &mut draft.default_model);
+            for (i, sensor) in doc.session.sensors.iter().enumerate() {
+                ui.separator();
+                ui.horizontal(|ui| {
+                    let kind = match sensor.kind {
+                        SensorKind::Ray => "narrow beams",
+                        SensorKind::Cone => "wide beams",
+                    };
+                    ui.label(RichText::new(format!("Sensor \"{}\"", sensor.id)).strong());
+                    ui.label(format!("({kind}, {} beams)", sensor.beam_count()));
+                    if ui.radio(self.focus == i, "plot").on_hover_text("Show this sensor's model in the plot below").clicked() {
+                        self.focus = i;
+                    }
+                });
+                let mut own = draft.models.contains_key(&sensor.id);
+                if ui.checkbox(&mut own, "own model").on_hover_text("Give this sensor a model of its own instead of the default").changed() {
+                    if own {
+                        draft.models.insert(sensor.id.clone(), draft.default_model);
+                    } else {
+                        draft.models.remove(&sensor.id);
+                    }
+                    changed = true;
+                }
+                if let Some(m) = draft.models.get_mut(&sensor.id) {
+                    changed |= model_ui(ui, &sensor.id, m);
+                }
+            }
+            ui.separator();
+            self.plot_ui(ui, doc, &draft, selected);
+        });
+
+        let mut actions = Vec::new();
+        if changed || self.refusal.is_some() {
+            match draft.validate() {
+                Ok(()) if draft != doc.params => {
+                    self.refusal = None;
+                    actions.push(Action::SetParams(draft.clone()));
+                }
+                Ok(()) => self.refusal = None,
+                Err(why) => self.refusal = Some(why.to_string()),
+            }
+        }
+        self.draft = (draft != doc.params).then_some(draft);
+        actions
+    }
+
+    /// The focus sensor's model along one beam, and the flip counts.
+    fn plot_ui(
+        &self,
+        ui: &mut egui::Ui,
+        doc: &Document,
+        draft: &Params,
+        selected: Option<(usize, Reading)>,
+    ) {
+        let Some(sensor) = doc.session.sensors.get(self.focus) else {
+            return;
+        };
+        // Plot the applied draft when it is valid, else the applied parameters.
+        let params = if draft.validate().is_ok() {
+            draft
+        } else {
+            &doc.params
+        };
+        let spec = *params.model_for(&sensor.id);
+        let model = PreparedModel::new(spec);
+        let z = match selected {
+            Some((s, Reading::Hit(z))) if s == self.focus => z,
+            _ => (sensor.range_max * 0.5).min(3.0),
+        };
+        let reach = model.hit_reach(z);
+        let far = reach + (reach - z).max(0.2);
+        let n = 600;
+        let pts: Vec<[f64; 2]> = (0..=n)
+            .map(|k| {
+                let d = far * k as f64 / n as f64;
+                let inc = if d <= reach {
+                    model.hit_increment_exact(d, z)
+                } else {
+                    0.0
+                };
+                [d, inc]
+            })
+            .collect();
+        ui.label(
+            RichText::new(format!(
+                "Model of \"{}\" along a beam hitting at {z:.2} m",
+                sensor.id
+            ))
+            .strong(),
+        );
+        Plot::new(("model plot", self.focus))
+            .height(200.0)
+            .legend(Legend::default())
+            .x_axis_label("distance from the sensor (m)")
+            .y_axis_label("increment (log-odds)")
+            .include_y(params.clamp.min)
+            .include_y(params.clamp.max)
+            .allow_scroll(false)
+            .show(ui, |p| {
+                p.line(Line::new("increment", PlotPoints::from(pts)));
+                if sensor.kind == SensorKind::Cone {
+                    // Half-way to the cone's edge the deviation from 0.5 shrinks to 3/4.
+                    let w: Vec<[f64; 2]> = (0..=n)
+                        .map(|k| {
+                            let d = reach * k as f64 / n as f64;
+                            let p_rad = crate::model::hit_probability(&spec, d, z);
+                            [
+                                d,
+                                logit(cone_probability(
+                                    p_rad,
+                                    sensor.cone_width / 4.0,
+                                    sensor.cone_width,
+                                )),
+                            ]
+                        })
+                        .collect();
+                    p.line(Line::new(
+                        "at a quarter of the cone width",
+                        PlotPoints::from(w),
+                    ));
+                }
+                p.vline(VLine::new("reading", z));
+                p.vline(VLine::new("reach", reach).color(Color32::GRAY));
+                p.hline(
+                    HLine::new("clamp max", params.clamp.max)
+                        .color(Color32::from_rgb(120, 140, 255)),
+                );
+                p.hline(
+                    HLine::new("clamp min", params.clamp.min)
+                        .color(Color32::from_rgb(240, 200, 90)),
+                );
+            });
+        let l_free = logit(spec.p_free());
+        let l_occ = logit(spec.p_occ());
+        let clamp = params.clamp;
+        let say = |n: Option<u32>| n.map_or("never".to_string(), |n| n.to_string());
+        ui.label(format!(
+            "A cell at the upper clamp ({:+.2}) drops below p = 0.5 after {} consistent free readings ({l_free:+.3} each).",
+            clamp.max,
+            say(clamp.readings_to_flip(l_free))
+        ));
+        ui.label(format!(
+            "A cell at the lower clamp ({:+.2}) rises above p = 0.5 after {} consistent hits at the peak ({l_occ:+.3} each).",
+            clamp.min,
+            say(clamp.readings_to_flip(l_occ))
+        ));
+    }
+}

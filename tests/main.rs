@@ -1,0 +1,3 @@
+//! Integration tests, built as one binary to keep link time down on two cores.
+
+mod suite;

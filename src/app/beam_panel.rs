@@ -20,12 +20,11 @@ fn footprint_table_ui(ui: &mut egui::Ui, records: &[TouchRecord], fusion: Fusion
     TableBuilder::new(ui)
         .id_salt("footprint table")
         .striped(true)
-        .column(Column::exact(34.0))
-        .columns(Column::exact(48.0), 2)
-        .column(Column::exact(56.0))
-        .column(Column::exact(70.0))
-        .column(Column::exact(120.0))
-        .column(Column::remainder())
+        .column(Column::exact(30.0))
+        .columns(Column::exact(40.0), 2)
+        .column(Column::exact(50.0))
+        .columns(Column::exact(62.0), 3)
+        .column(Column::remainder().at_least(60.0))
         .header(row_height + 4.0, |mut h| {
             for (title, tip) in [
                 ("#", "order along the beam"),
@@ -33,7 +32,8 @@ fn footprint_table_ui(ui: &mut egui::Ui, records: &[TouchRecord], fusion: Fusion
                 ("row", "cell row (0 = south edge)"),
                 ("dist m", "distance from the beam origin to the cell centre, metres"),
                 ("incr", "log-odds increment before clamping"),
-                ("before -> after", "cell log-odds before and after this beam"),
+                ("before", "cell log-odds before this beam (OncePerCell: at the start of the frame)"),
+                ("after", "cell log-odds after this beam (OncePerCell: at the end of the frame)"),
                 ("note", "clamped: the clamp cut the update; not used: under OncePerCell a stronger increment won"),
             ] {
                 h.col(|ui| {
@@ -65,13 +65,14 @@ fn footprint_table_ui(ui: &mut egui::Ui, records: &[TouchRecord], fusion: Fusion
                     format!("{}", r.touch.cell.row),
                     format!("{:.3}", r.touch.distance),
                     format!("{:+.4}", r.touch.increment),
-                    format!("{:+.3} -> {:+.3}", r.before, r.after),
+                    format!("{:+.3}", r.before),
+                    format!("{:+.3}", r.after),
                     note.to_string(),
                 ];
                 for (i, text) in cells.into_iter().enumerate() {
                     row.col(|ui| {
                         let t = RichText::new(text).monospace();
-                        ui.label(if i == 4 { t.color(colour) } else { t });
+                        ui.add(egui::Label::new(if i == 4 { t.color(colour) } else { t }).truncate());
                     });
                 }
             });
@@ -193,7 +194,9 @@ impl BeamPanel {
             Reading::NoReturn => Some(sensor.range_max),
             Reading::Invalid => None,
         };
+        let far = reach.unwrap_or(1.0) * 1.05;
         Plot::new(("beam plot", b.sensor, b.beam))
+            .default_x_bounds(0.0, far)
             .height(190.0)
             .legend(Legend::default())
             .x_axis_label("distance from the sensor (m)")

@@ -594,7 +594,7 @@ impl GridscopeApp {
             let doc = self.doc.as_ref().expect("checked");
             egui::Panel::right("inspector")
                 .resizable(true)
-                .default_size(380.0)
+                .default_size(470.0)
                 .show(ui, |ui| {
                     actions.extend(self.beam_panel.ui(
                         ui,

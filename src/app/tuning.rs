@@ -244,7 +244,9 @@ impl TuningPanel {
             ))
             .strong(),
         );
-        Plot::new(("model plot", self.focus))
+        // The plot's identity includes the reading so that its axes follow a newly chosen beam.
+        Plot::new(("model plot", self.focus, (z * 1000.0).round() as i64))
+            .default_x_bounds(0.0, far)
             .height(200.0)
             .legend(Legend::default())
             .x_axis_label("distance from the sensor (m)")

@@ -164,7 +164,7 @@ fn a_selected_beam_fills_the_table_with_the_core_footprint() {
     assert!(!records.is_empty());
     // The table's first row is on screen with the core's numbers.
     let first = &records[0];
-    let text = format!("{:+.3} -> {:+.3}", first.before, first.after);
+    let text = format!("{:+.4}", first.touch.increment);
     assert!(
         h.query_all_by_label(&text).next().is_some(),
         "row {text:?} not shown"

@@ -212,3 +212,139 @@ pub fn history(
     }
     Ok(())
 }
+
+/// Loads a map bundle from a prefix (or either file of it), or `demo:NAME` for a demo's
+/// reference map.
+pub fn load_map(arg: &Path, budget: u64) -> Result<crate::grid::Grid, Error> {
+    match arg.to_str().and_then(|s| s.strip_prefix("demo:")) {
+        Some(name) => demo::reference(name),
+        None => Ok(crate::export::load_bundle(arg, budget)?.grid),
+    }
+}
+
+/// A score value as printed: shortest round-trip text, `nan` when undefined.
+fn show(v: f64) -> String {
+    if v.is_nan() { "nan".into() } else { format!("{v}") }
+}
+
+/// Scores map bundle `map` against bundle `reference` and prints `key=value` lines (or JSON).
+pub fn score(map_arg: &Path, reference_arg: &Path, json: bool, confusion: bool, budget: u64, out: &mut dyn Write) -> Result<(), Error> {
+    let map = load_map(map_arg, budget)?;
+    let reference = load_map(reference_arg, budget)?;
+    let s = crate::score::score(&map, &reference).map_err(|e| {
+        InputError::new(
+            format!("{} against {}", map_arg.display(), reference_arg.display()),
+            crate::error::Problem::Malformed(e.to_string()),
+        )
+    })?;
+    let mut pairs: Vec<(&str, String)> = vec![
+        ("cells_compared", s.cells_compared.to_string()),
+        ("cross_entropy_bits", show(s.cross_entropy_bits)),
+        ("brier", show(s.brier)),
+        ("auc", show(s.auc)),
+        ("precision", show(s.precision)),
+        ("recall", show(s.recall)),
+    ];
+    if confusion {
+        let c = s.confusion;
+        pairs.extend([
+            ("true_occupied", c.true_occupied.to_string()),
+            ("false_occupied", c.false_occupied.to_string()),
+            ("true_free", c.true_free.to_string()),
+            ("false_free", c.false_free.to_string()),
+            ("unknown_occupied", c.unknown_occupied.to_string()),
+            ("unknown_free", c.unknown_free.to_string()),
+        ]);
+    }
+    if json {
+        let body: Vec<String> = pairs
+            .iter()
+            .map(|(k, v)| format!("\"{k}\": {}", if v == "nan" { "null" } else { v.as_str() }))
+            .collect();
+        let _ = writeln!(out, "{{{}}}", body.join(", "));
+    } else {
+        for (k, v) in pairs {
+            let _ = writeln!(out, "{k}={v}");
+        }
+    }
+    Ok(())
+}
+
+/// Arguments of `gridscope sweep`.
+#[derive(Clone, Debug)]
+pub struct SweepArgs {
+    /// Session file or `demo:NAME`.
+    pub session: PathBuf,
+    /// Base parameter profile.
+    pub params: Option<PathBuf>,
+    /// Reference bundle or `demo:NAME`.
+    pub reference: PathBuf,
+    /// Varied parameters.
+    pub vary: Vec<crate::sweep::Vary>,
+    /// What decides the best row.
+    pub objective: crate::sweep::Objective,
+    /// Integrate only the first N frames.
+    pub until: Option<usize>,
+    /// Write the best setting's profile here.
+    pub save_best: Option<PathBuf>,
+    /// Largest grid allowed, cells.
+    pub cell_budget: u64,
+}
+
+/// Rebuilds a session for every setting of the varied parameters, scores each map against the
+/// reference and prints a table and the best setting.
+pub fn sweep(args: &SweepArgs, out: &mut dyn Write) -> Result<(), Error> {
+    use crate::sweep::{SweepPlan, sweep};
+    use std::sync::atomic::{AtomicBool, AtomicUsize};
+    let session = Arc::new(load_session(&args.session)?);
+    let base = load_params(args.params.as_deref())?;
+    let reference = Arc::new(load_map(&args.reference, args.cell_budget)?);
+    let frames = args.until.unwrap_or(session.frames.len()).min(session.frames.len());
+    let plan = SweepPlan {
+        session,
+        base: base.clone(),
+        reference,
+        vary: args.vary.clone(),
+        objective: args.objective,
+        frames,
+    };
+    let result = sweep(&plan, &AtomicBool::new(false), &AtomicUsize::new(0));
+    let mut header: Vec<String> = result.vary.iter().map(|v| v.name.clone()).collect();
+    header.extend(["cells_compared", "cross_entropy_bits", "brier", "auc", "precision", "recall"].map(String::from));
+    let _ = writeln!(out, "{}", header.join("\t"));
+    for row in &result.rows {
+        let mut cells: Vec<String> = row.values.iter().map(|v| format!("{v}")).collect();
+        match &row.outcome {
+            Ok(s) => cells.extend([
+                s.cells_compared.to_string(),
+                show(s.cross_entropy_bits),
+                show(s.brier),
+                show(s.auc),
+                show(s.precision),
+                show(s.recall),
+            ]),
+            Err(why) => cells.push(format!("refused: {why}")),
+        }
+        let _ = writeln!(out, "{}", cells.join("\t"));
+    }
+    match result.best {
+        Some(i) => {
+            let settings: Vec<String> = result
+                .vary
+                .iter()
+                .zip(&result.rows[i].values)
+                .map(|(v, x)| format!("{}={x}", v.name))
+                .collect();
+            let _ = writeln!(out, "best: {}", settings.join(" "));
+            if let Some(path) = &args.save_best {
+                let p = result.params_of(&base, i);
+                write_all_atomically(&[(path.clone(), p.to_ron_string().into_bytes())])?;
+                let _ = writeln!(out, "wrote {}", path.display());
+            }
+        }
+        None => {
+            let _ = writeln!(out, "best: none (no setting could be scored)");
+        }
+    }
+    Ok(())
+}

@@ -19,8 +19,10 @@ pub mod logodds;
 pub mod model;
 pub mod params;
 pub mod replay;
+pub mod score;
 pub mod session;
 pub mod sim;
+pub mod sweep;
 
 pub use error::{Error, InputError, Problem};
 pub use export::{Provenance, SAFETY_NOTICE, load_bundle, write_bundle};

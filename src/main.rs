@@ -79,6 +79,49 @@ enum Command {
         #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
         cell_budget: u64,
     },
+    /// Score a map bundle against a reference bundle (same resolution, compared on the overlap).
+    Score {
+        /// Map bundle prefix (or its .npy / .map.ron).
+        map: PathBuf,
+        /// Reference bundle prefix, or `demo:NAME` for a demo's reference.
+        #[arg(long)]
+        reference: PathBuf,
+        /// Print JSON instead of key=value lines.
+        #[arg(long)]
+        json: bool,
+        /// Also print the confusion counts.
+        #[arg(long)]
+        confusion: bool,
+        /// Refuse grids larger than this many cells.
+        #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
+        cell_budget: u64,
+    },
+    /// Rebuild a session for each setting of one or two parameters and score each map.
+    Sweep {
+        /// Session file, or `demo:NAME`.
+        session: PathBuf,
+        /// Base parameter profile; defaults when omitted.
+        #[arg(long)]
+        params: Option<PathBuf>,
+        /// Reference bundle prefix, or `demo:NAME`.
+        #[arg(long)]
+        reference: PathBuf,
+        /// NAME=FROM:TO:STEPS, e.g. clamp.max=1:10:10 or models.sonar_ring.p_free=0.3:0.45:4.
+        #[arg(long, required = true, value_parser = gridscope::sweep::Vary::parse)]
+        vary: Vec<gridscope::sweep::Vary>,
+        /// Score that picks the best setting: cross_entropy, brier or auc.
+        #[arg(long, default_value = "cross_entropy", value_parser = gridscope::sweep::Objective::parse)]
+        by: gridscope::sweep::Objective,
+        /// Integrate only the first N frames.
+        #[arg(long, value_name = "N")]
+        until: Option<usize>,
+        /// Write the best setting's full profile to this file.
+        #[arg(long, value_name = "FILE")]
+        save_best: Option<PathBuf>,
+        /// Refuse grids larger than this many cells.
+        #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
+        cell_budget: u64,
+    },
     /// Simulate a floor plan's run into a session, plus the plan's reference map bundle.
     Simulate {
         /// Floor plan (`*.plan.ron`).
@@ -146,6 +189,35 @@ fn run(cli: Cli) -> Result<(), gridscope::Error> {
             &session,
             reference.as_deref(),
             reference_time,
+            &mut out,
+        ),
+        Some(Command::Score {
+            map,
+            reference,
+            json,
+            confusion,
+            cell_budget,
+        }) => commands::score(&map, &reference, json, confusion, cell_budget, &mut out),
+        Some(Command::Sweep {
+            session,
+            params,
+            reference,
+            vary,
+            by,
+            until,
+            save_best,
+            cell_budget,
+        }) => commands::sweep(
+            &commands::SweepArgs {
+                session,
+                params,
+                reference,
+                vary,
+                objective: by,
+                until,
+                save_best,
+                cell_budget,
+            },
             &mut out,
         ),
         Some(Command::Open { file, params }) => open_window(file, params),

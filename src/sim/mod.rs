@@ -281,19 +281,19 @@ pub fn reference_map(plan: &FloorPlan, t: f64) -> Result<Grid, Error> {
     }
     for w in plan.walls.iter().filter(|w| w.exists_at(t)) {
         let len = w.a.distance(w.b);
-        let walk = RayWalk::from_direction(
-            &spec,
-            w.a,
-            (w.b.x - w.a.x) / len,
-            (w.b.y - w.a.y) / len,
-            len,
-        );
-        walk.for_each(|c| {
-            if let Some(i) = spec.index(c) {
-                grid.values_mut()[i] = REFERENCE_OCCUPIED;
-            }
-            true
-        });
+        let (ux, uy) = ((w.b.x - w.a.x) / len, (w.b.y - w.a.y) / len);
+        // Walk the wall itself and two copies shifted a hair to either side, so that a wall
+        // lying exactly on a grid line marks the cells on both sides of it (a surface there is
+        // seen from both rooms); elsewhere the copies add nothing.
+        for side in [0.0, 1e-7, -1e-7] {
+            let a = Point2::new(w.a.x - uy * side, w.a.y + ux * side);
+            RayWalk::from_direction(&spec, a, ux, uy, len).for_each(|c| {
+                if let Some(i) = spec.index(c) {
+                    grid.values_mut()[i] = REFERENCE_OCCUPIED;
+                }
+                true
+            });
+        }
     }
     debug_assert!((REFERENCE_OCCUPIED as f64 - logit(0.98)).abs() < 1e-2);
     Ok(grid)
@@ -446,12 +446,12 @@ mod tests {
         let g = reference_map(&plan, 0.0).unwrap();
         let at = |x, y| g.get(g.spec().cell_at(Point2::new(x, y))).unwrap();
         assert_eq!(at(3.0, 2.0), REFERENCE_FREE);
-        // A wall lying exactly on a grid line marks the cells on one side of it; which side
-        // rounding picks is not specified.
-        let either = |a: f32, b: f32| a == REFERENCE_OCCUPIED || b == REFERENCE_OCCUPIED;
-        assert!(either(at(3.05, 0.05), at(3.05, -0.05)));
-        assert!(either(at(5.95, 2.0), at(6.05, 2.0)));
+        // A wall lying exactly on a grid line marks the cells on both sides of it.
+        assert_eq!(at(3.05, 0.05), REFERENCE_OCCUPIED);
+        assert_eq!(at(3.05, -0.05), REFERENCE_OCCUPIED);
+        assert_eq!(at(5.95, 2.0), REFERENCE_OCCUPIED);
+        assert_eq!(at(6.05, 2.0), REFERENCE_OCCUPIED);
+        assert_eq!(at(5.85, 2.0), REFERENCE_FREE);
         assert_eq!(at(3.05, 1.0), REFERENCE_FREE);
-        assert_eq!(at(-0.05, -0.05), 0.0);
     }
 }

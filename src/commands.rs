@@ -224,11 +224,22 @@ pub fn load_map(arg: &Path, budget: u64) -> Result<crate::grid::Grid, Error> {
 
 /// A score value as printed: shortest round-trip text, `nan` when undefined.
 fn show(v: f64) -> String {
-    if v.is_nan() { "nan".into() } else { format!("{v}") }
+    if v.is_nan() {
+        "nan".into()
+    } else {
+        format!("{v}")
+    }
 }
 
 /// Scores map bundle `map` against bundle `reference` and prints `key=value` lines (or JSON).
-pub fn score(map_arg: &Path, reference_arg: &Path, json: bool, confusion: bool, budget: u64, out: &mut dyn Write) -> Result<(), Error> {
+pub fn score(
+    map_arg: &Path,
+    reference_arg: &Path,
+    json: bool,
+    confusion: bool,
+    budget: u64,
+    out: &mut dyn Write,
+) -> Result<(), Error> {
     let map = load_map(map_arg, budget)?;
     let reference = load_map(reference_arg, budget)?;
     let s = crate::score::score(&map, &reference).map_err(|e| {
@@ -299,7 +310,10 @@ pub fn sweep(args: &SweepArgs, out: &mut dyn Write) -> Result<(), Error> {
     let session = Arc::new(load_session(&args.session)?);
     let base = load_params(args.params.as_deref())?;
     let reference = Arc::new(load_map(&args.reference, args.cell_budget)?);
-    let frames = args.until.unwrap_or(session.frames.len()).min(session.frames.len());
+    let frames = args
+        .until
+        .unwrap_or(session.frames.len())
+        .min(session.frames.len());
     let plan = SweepPlan {
         session,
         base: base.clone(),
@@ -310,7 +324,17 @@ pub fn sweep(args: &SweepArgs, out: &mut dyn Write) -> Result<(), Error> {
     };
     let result = sweep(&plan, &AtomicBool::new(false), &AtomicUsize::new(0));
     let mut header: Vec<String> = result.vary.iter().map(|v| v.name.clone()).collect();
-    header.extend(["cells_compared", "cross_entropy_bits", "brier", "auc", "precision", "recall"].map(String::from));
+    header.extend(
+        [
+            "cells_compared",
+            "cross_entropy_bits",
+            "brier",
+            "auc",
+            "precision",
+            "recall",
+        ]
+        .map(String::from),
+    );
     let _ = writeln!(out, "{}", header.join("\t"));
     for row in &result.rows {
         let mut cells: Vec<String> = row.values.iter().map(|v| format!("{v}")).collect();

@@ -70,7 +70,7 @@ enum Command {
         #[arg(long)]
         params: Option<PathBuf>,
         /// World point X,Y in metres; the cell containing it is traced.
-        #[arg(long, value_name = "X,Y", value_parser = parse_point)]
+        #[arg(long, value_name = "X,Y", value_parser = parse_point, allow_hyphen_values = true)]
         cell: (f64, f64),
         /// Trace only the first N frames.
         #[arg(long, value_name = "N")]

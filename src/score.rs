@@ -61,10 +61,14 @@ pub struct Score {
 #[derive(Clone, Debug, PartialEq, thiserror::Error)]
 pub enum CompareError {
     /// Different cell sizes.
-    #[error("the grids have different resolutions ({0} m and {1} m); compare maps of equal resolution")]
+    #[error(
+        "the grids have different resolutions ({0} m and {1} m); compare maps of equal resolution"
+    )]
     Resolution(f64, f64),
     /// Origins not a whole number of cells apart.
-    #[error("the grids' origins are not a whole number of cells apart, so their cells do not line up")]
+    #[error(
+        "the grids' origins are not a whole number of cells apart, so their cells do not line up"
+    )]
     Misaligned,
     /// No cell in common, or none decided by the reference.
     #[error("the grids share no cell that the reference decides")]
@@ -87,7 +91,11 @@ pub fn lattice_offset(spec: &GridSpec, other: &GridSpec) -> Result<(i64, i64), C
 }
 
 /// Calls `f(map_value, other_value, map_cell)` for every cell the two grids share.
-pub fn for_each_shared(map: &Grid, other: &Grid, mut f: impl FnMut(f32, f32, CellIndex)) -> Result<(), CompareError> {
+pub fn for_each_shared(
+    map: &Grid,
+    other: &Grid,
+    mut f: impl FnMut(f32, f32, CellIndex),
+) -> Result<(), CompareError> {
     let (dc, dr) = lattice_offset(map.spec(), other.spec())?;
     let ms = map.spec();
     let os = other.spec();
@@ -286,7 +294,12 @@ pub fn class_changes(a: &Grid, b: &Grid) -> Result<Vec<ChangeCluster>, CompareEr
             cells,
         });
     }
-    clusters.sort_by(|x, y| y.cells.len().cmp(&x.cells.len()).then(x.cells[0].cmp(&y.cells[0])));
+    clusters.sort_by(|x, y| {
+        y.cells
+            .len()
+            .cmp(&x.cells.len())
+            .then(x.cells[0].cmp(&y.cells[0]))
+    });
     Ok(clusters)
 }
 
@@ -303,7 +316,10 @@ mod tests {
             width: w,
             height: h,
         };
-        let v = values.iter().map(|&p| if p == 0.5 { 0.0 } else { logit(p) as f32 }).collect();
+        let v = values
+            .iter()
+            .map(|&p| if p == 0.5 { 0.0 } else { logit(p) as f32 })
+            .collect();
         Grid::from_values(spec, v).unwrap()
     }
 
@@ -316,7 +332,11 @@ mod tests {
         assert_eq!(s.cells_compared, 3);
         // Cross-entropy (Shannon log loss, base 2), by hand:
         // -(log2 0.8 + log2 0.6 + log2 0.5) / 3 = (0.32193 + 0.73697 + 1) / 3 = 0.68630.
-        assert!((s.cross_entropy_bits - 0.686_30).abs() < 1e-4, "{}", s.cross_entropy_bits);
+        assert!(
+            (s.cross_entropy_bits - 0.686_30).abs() < 1e-4,
+            "{}",
+            s.cross_entropy_bits
+        );
         // Brier (1950): ((0.8-1)^2 + (0.4-0)^2 + (0.5-1)^2) / 3 = (0.04 + 0.16 + 0.25) / 3 = 0.15.
         assert!((s.brier - 0.15).abs() < 1e-6, "{}", s.brier);
         // ROC AUC (Hanley & McNeil 1982): positives {0.8, 0.5}, negative {0.4}: both above -> 1.
@@ -355,7 +375,10 @@ mod tests {
         let mut coarse = *reference.spec();
         coarse.resolution = 1.0;
         let coarse = Grid::from_values(coarse, reference.values().to_vec()).unwrap();
-        assert!(matches!(score(&map, &coarse), Err(CompareError::Resolution(..))));
+        assert!(matches!(
+            score(&map, &coarse),
+            Err(CompareError::Resolution(..))
+        ));
         let far = grid((100, 0), 1, 1, &[0.9]);
         assert_eq!(score(&map, &far).unwrap_err(), CompareError::Empty);
     }
@@ -378,8 +401,14 @@ mod tests {
         // Occupied -> free: (0,0) (1,0) (0,1) connected; unknown -> occupied: (3,0) (3,1);
         // free -> occupied: (2,1) alone.
         assert_eq!(c.len(), 3);
-        assert_eq!((c[0].from, c[0].to, c[0].cells.len()), (CellClass::Occupied, CellClass::Free, 3));
-        assert_eq!((c[1].from, c[1].to, c[1].cells.len()), (CellClass::Unknown, CellClass::Occupied, 2));
+        assert_eq!(
+            (c[0].from, c[0].to, c[0].cells.len()),
+            (CellClass::Occupied, CellClass::Free, 3)
+        );
+        assert_eq!(
+            (c[1].from, c[1].to, c[1].cells.len()),
+            (CellClass::Unknown, CellClass::Occupied, 2)
+        );
         assert_eq!(c[2].cells, vec![CellIndex::new(2, 1)]);
     }
 }

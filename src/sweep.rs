@@ -82,8 +82,12 @@ pub fn set_param(p: &mut Params, name: &str, value: f64, probe: bool) -> Result<
             (ModelSpec::Gaussian { sigma, .. }, "sigma") => *sigma = value,
             (ModelSpec::Gaussian { cutoff, .. }, "cutoff") => *cutoff = value,
             (ModelSpec::Band { thickness, .. }, "thickness") => *thickness = value,
-            (ModelSpec::Gaussian { p_occ, .. } | ModelSpec::Band { p_occ, .. }, "p_occ") => *p_occ = value,
-            (ModelSpec::Gaussian { p_free, .. } | ModelSpec::Band { p_free, .. }, "p_free") => *p_free = value,
+            (ModelSpec::Gaussian { p_occ, .. } | ModelSpec::Band { p_occ, .. }, "p_occ") => {
+                *p_occ = value
+            }
+            (ModelSpec::Gaussian { p_free, .. } | ModelSpec::Band { p_free, .. }, "p_free") => {
+                *p_free = value
+            }
             (m, f) => return Err(format!("a {} model has no parameter {f:?}", m.kind_name())),
         }
         Ok(())
@@ -133,7 +137,9 @@ impl Objective {
             "cross_entropy" | "cross_entropy_bits" => Ok(Objective::CrossEntropy),
             "brier" => Ok(Objective::Brier),
             "auc" => Ok(Objective::Auc),
-            _ => Err(format!("unknown objective {s:?}; use cross_entropy, brier or auc")),
+            _ => Err(format!(
+                "unknown objective {s:?}; use cross_entropy, brier or auc"
+            )),
         }
     }
 
@@ -282,12 +288,23 @@ mod tests {
         let v = Vary::parse("clamp.max=1:5:5").unwrap();
         assert_eq!(v.values(), vec![1.0, 2.0, 3.0, 4.0, 5.0]);
         assert_eq!(Vary::parse("prior=0.3:0.3:1").unwrap().values(), vec![0.3]);
-        assert!(Vary::parse("clamp.mx=1:5:5").unwrap_err().contains("unknown parameter"));
+        assert!(
+            Vary::parse("clamp.mx=1:5:5")
+                .unwrap_err()
+                .contains("unknown parameter")
+        );
         assert!(Vary::parse("clamp.max=1:5").is_err());
         assert!(Vary::parse("clamp.max=1:x:3").is_err());
-        assert!(Vary::parse("default_model.thickness=0.1:0.2:2").unwrap_err().contains("Gaussian"));
+        assert!(
+            Vary::parse("default_model.thickness=0.1:0.2:2")
+                .unwrap_err()
+                .contains("Gaussian")
+        );
         assert!(Vary::parse("models.sonar.p_free=0.3:0.45:4").is_ok());
-        let grid = settings(&[Vary::parse("prior=0.4:0.6:3").unwrap(), Vary::parse("clamp.max=2:4:2").unwrap()]);
+        let grid = settings(&[
+            Vary::parse("prior=0.4:0.6:3").unwrap(),
+            Vary::parse("clamp.max=2:4:2").unwrap(),
+        ]);
         assert_eq!(grid.len(), 6);
         assert_eq!(grid[1], vec![0.4, 4.0]);
     }

@@ -124,6 +124,14 @@ impl BeamPanel {
             if selected.is_none() && ui.button("Inspect").clicked() {
                 actions.push(Action::SelectBeam { sensor, beam });
             }
+            if selected.is_some()
+                && ui
+                    .button("Clear")
+                    .on_hover_text("Stop inspecting this beam")
+                    .clicked()
+            {
+                actions.push(Action::ClearBeam);
+            }
         });
         let Some(selected_pair) = selected else {
             ui.label("Click a beam in the map (or choose one above) to see the cells it touched.");
@@ -199,7 +207,7 @@ impl BeamPanel {
             .default_x_bounds(0.0, far)
             .height(190.0)
             .legend(Legend::default())
-            .x_axis_label("distance from the sensor (m)")
+            .custom_x_axes(super::plot_x_axis("distance from the sensor (m)"))
             .y_axis_label("increment (log-odds)")
             .include_y(lo as f64)
             .include_y(hi as f64)

@@ -56,8 +56,14 @@ pub struct ViewData<'a> {
     pub doc: Option<&'a Document>,
     /// The grid to show.
     pub grid: Option<&'a Grid>,
-    /// Changes whenever `grid` does.
+    /// Changes whenever `grid` (or what it is compared with) does.
     pub grid_version: u64,
+    /// Clamp bounds of the parameters that made `grid`, log-odds (for the palette).
+    pub clamp: (f32, f32),
+    /// When set, colour cells by how their class differs from this grid (A) instead.
+    pub compare_with: Option<&'a Grid>,
+    /// Which layer is shown (part of the texture's identity).
+    pub layer: super::Layer,
     /// Current frame index.
     pub frame: usize,
     /// Display choices.
@@ -94,7 +100,7 @@ pub struct Hover {
 /// State of the grid view.
 pub struct GridView {
     texture: Option<TextureHandle>,
-    texture_key: Option<(u64, super::palette::Palette, [u32; 2])>,
+    texture_key: Option<(u64, super::palette::Palette, [u32; 2], super::Layer)>,
     /// World point at the view centre, metres.
     pub centre: Point2,
     /// Screen points per metre.
@@ -273,14 +279,19 @@ impl GridView {
         self.transform = Some(t);
 
         // The grid texture, re-uploaded only when something it depends on changed.
-        let (lo, hi) = doc.builder.clamp_bounds();
+        let (lo, hi) = data.clamp;
         let key = (
             data.grid_version,
             data.settings.palette,
             [lo.to_bits(), hi.to_bits()],
+            data.layer,
         );
         if self.texture_key != Some(key) || self.texture.is_none() {
-            let image = grid_pixels(data.settings.palette, grid, lo, hi);
+            let image = match data.compare_with {
+                Some(a) => super::compare::difference_pixels(a, grid)
+                    .unwrap_or_else(|_| grid_pixels(data.settings.palette, grid, lo, hi)),
+                None => grid_pixels(data.settings.palette, grid, lo, hi),
+            };
             match &mut self.texture {
                 Some(tex) => tex.set(image, TextureOptions::NEAREST),
                 None => {
@@ -424,7 +435,15 @@ impl GridView {
             );
         }
 
-        // Picking: a click near a beam selects it, elsewhere it selects the cell.
+        // Picking: a click within a few points of a drawn beam selects the beam; a click
+        // elsewhere, a Shift+click or a right-click selects the cell under the pointer.
+        let shift = ui.input(|i| i.modifiers.shift);
+        let pick_cell = |p: Pos2, actions: &mut Vec<Action>| {
+            let cell = spec.cell_at(t.to_world(p));
+            if spec.index(cell).is_some() {
+                actions.push(Action::SelectCell(cell));
+            }
+        };
         if response.clicked()
             && let Some(p) = response.interact_pointer_pos()
         {
@@ -438,22 +457,19 @@ impl GridView {
                 })
                 .min_by(|a, b| a.0.total_cmp(&b.0));
             match nearest {
-                Some((d, b)) if d <= 6.0 && data.settings.show_beams => {
+                Some((d, b)) if d <= 4.0 && data.settings.show_beams && !shift => {
                     actions.push(Action::SelectBeam {
                         sensor: b.sensor,
                         beam: b.beam,
                     })
                 }
-                _ => {
-                    let cell = spec.cell_at(t.to_world(p));
-                    if spec.index(cell).is_some() {
-                        actions.push(Action::SelectCell(cell));
-                    }
-                }
+                _ => pick_cell(p, &mut actions),
             }
         }
-        if response.secondary_clicked() {
-            actions.push(Action::ClearBeam);
+        if response.secondary_clicked()
+            && let Some(p) = response.interact_pointer_pos()
+        {
+            pick_cell(p, &mut actions);
         }
 
         // Hover readout.
@@ -491,7 +507,16 @@ impl GridView {
         }
 
         scale_bar(&painter, rect, self.scale);
-        legend(&painter, rect, data.settings.palette, lo, hi);
+        if data.compare_with.is_none() {
+            legend(&painter, rect, data.settings.palette, lo, hi);
+        } else {
+            overlay_text(
+                &painter,
+                rect.right_bottom() + vec2(-12.0, -12.0),
+                egui::Align2::RIGHT_BOTTOM,
+                "difference A -> B: see the Compare tab for colours and counts",
+            );
+        }
 
         if let Some(path) = self.export_request.take() {
             let slot = self.export_result.clone();

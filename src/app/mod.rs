@@ -6,19 +6,30 @@
 //! the window shows the newest grid it has been sent.
 
 mod beam_panel;
+mod cell_panel;
+mod changes_panel;
+mod compare;
 mod grid_view;
+mod jobs;
 mod menu;
 pub mod palette;
+mod score_panel;
 pub mod settings;
 mod status;
+mod sweep_panel;
 mod timeline;
 mod tuning;
 mod worker;
 
 pub use beam_panel::BeamPanel;
+pub use cell_panel::CellPanel;
+pub use changes_panel::ChangesPanel;
+pub use compare::{ComparePanel, Layer, Pinned};
 pub use grid_view::{GridView, ViewTransform};
 pub use menu::FileMenu;
-pub use settings::Settings;
+pub use score_panel::{Reference, ScorePanel};
+pub use settings::{InspectorTab, Settings};
+pub use sweep_panel::SweepPanel;
 pub use timeline::Timeline;
 pub use tuning::TuningPanel;
 
@@ -65,6 +76,45 @@ pub enum Action {
     ExportView(PathBuf),
     /// Open whatever this file is, judged by its name.
     OpenAny(PathBuf),
+    /// Go to a frame and inspect one of its beams.
+    JumpTo {
+        /// Frame index.
+        frame: usize,
+        /// Sensor index.
+        sensor: usize,
+        /// Beam index.
+        beam: usize,
+    },
+    /// Centre the view on a cell and inspect it.
+    FocusCell(CellIndex),
+    /// Pin the current parameters as A.
+    PinA,
+    /// Drop A.
+    UnpinA,
+    /// Choose what the map shows.
+    SetLayer(Layer),
+    /// Load a reference map bundle.
+    LoadReference(PathBuf),
+    /// Load a greyscale image as reference.
+    LoadReferenceImage(crate::export::ImageReference),
+    /// Use the plan of an embedded demo as reference.
+    UseDemoReference(&'static str),
+    /// Start the sweep set up in the sweep panel.
+    StartSweep,
+    /// Start the change search set up in the changes panel.
+    FindChanges,
+    /// Show an inspector tab.
+    ShowTab(InspectorTab),
+}
+
+/// An x axis for the panels' plots: labelled, with tick labels kept at 30-45 points apart so
+/// that narrow side panels still show several of them.
+pub(crate) fn plot_x_axis(label: &str) -> Vec<egui_plot::AxisHints<'static>> {
+    vec![
+        egui_plot::AxisHints::new_x()
+            .label(label.to_string())
+            .label_spacing(30.0..=45.0),
+    ]
 }
 
 /// Where the loaded session came from.
@@ -165,6 +215,24 @@ pub struct GridscopeApp {
     pub beam_panel: BeamPanel,
     /// The file menu and its dialogs.
     pub file_menu: FileMenu,
+    /// The cell history.
+    pub cell_panel: CellPanel,
+    /// The A/B comparison.
+    pub compare_panel: ComparePanel,
+    /// Scores against the reference.
+    pub score_panel: ScorePanel,
+    /// Parameter sweeps.
+    pub sweep_panel: SweepPanel,
+    /// The change finder.
+    pub changes_panel: ChangesPanel,
+    /// Pinned parameters (A) and their map.
+    pub pinned: Option<Pinned>,
+    /// What the map shows.
+    pub layer: Layer,
+    /// The reference map, if loaded.
+    pub reference: Option<Reference>,
+    reference_versions: u64,
+    repaint: Option<egui::Context>,
     worker: Worker,
     next_generation: u64,
     probe: Option<(ProbeKey, Vec<TouchRecord>)>,
@@ -187,6 +255,16 @@ impl GridscopeApp {
             tuning: TuningPanel::default(),
             beam_panel: BeamPanel::default(),
             file_menu: FileMenu::default(),
+            cell_panel: CellPanel::default(),
+            compare_panel: ComparePanel::default(),
+            score_panel: ScorePanel::default(),
+            sweep_panel: SweepPanel::default(),
+            changes_panel: ChangesPanel::default(),
+            pinned: None,
+            layer: Layer::Current,
+            reference: None,
+            reference_versions: 0,
+            repaint: None,
             worker: Worker::spawn(),
             next_generation: 1,
             probe: None,
@@ -276,6 +354,14 @@ impl GridscopeApp {
                 self.grid_view.request_fit();
                 self.tuning.reset();
                 self.timeline.stop();
+                self.pinned = None;
+                self.layer = Layer::Current;
+                self.reference = None;
+                self.changes_panel = ChangesPanel::default();
+                self.sweep_panel = SweepPanel::default();
+                if let Some(Source::Demo(name)) = self.doc.as_ref().map(|d| d.source.clone()) {
+                    self.use_demo_reference(name);
+                }
                 self.request_grid(true);
                 true
             }
@@ -351,6 +437,74 @@ impl GridscopeApp {
         let last = doc.session.frames.len().saturating_sub(1);
         self.frame = frame.min(last);
         self.request_grid(false);
+        if let Some(p) = &mut self.pinned {
+            p.seek(self.frame);
+        }
+    }
+
+    /// Pins the current parameters as A (its map rebuilds in the background).
+    pub fn pin(&mut self) {
+        if let Some(doc) = &self.doc {
+            self.pinned = Some(Pinned::pin(doc, self.frame, self.repaint.as_ref()));
+        }
+    }
+
+    fn set_reference(&mut self, label: String, grid: Grid) {
+        self.reference_versions += 1;
+        self.reference = Some(Reference {
+            label,
+            grid: Arc::new(grid),
+            version: self.reference_versions,
+        });
+    }
+
+    /// Uses an embedded demo's plan as the reference.
+    pub fn use_demo_reference(&mut self, name: &'static str) {
+        match demo::reference(name) {
+            Ok(g) => self.set_reference(format!("plan of demo {name}"), g),
+            Err(e) => self.problem(e.to_string()),
+        }
+    }
+
+    /// Loads a reference map bundle.
+    pub fn load_reference(&mut self, path: &Path) {
+        match crate::export::load_bundle(path, crate::grid::DEFAULT_CELL_BUDGET) {
+            Ok(b) => {
+                self.notice = Some(Notice::Info(format!("reference: {}", b.prefix.display())));
+                self.set_reference(b.prefix.display().to_string(), b.grid)
+            }
+            Err(e) => self.problem(e.to_string()),
+        }
+    }
+
+    /// Loads a greyscale image as the reference.
+    pub fn load_reference_image(&mut self, r: &crate::export::ImageReference) {
+        match crate::export::load_image_reference(r, crate::grid::DEFAULT_CELL_BUDGET) {
+            Ok(g) => {
+                self.notice = Some(Notice::Info(format!("reference: {}", r.path.display())));
+                self.set_reference(r.path.display().to_string(), g)
+            }
+            Err(e) => self.problem(e.to_string()),
+        }
+    }
+
+    /// Waits for every background answer in flight (tests and batch use only).
+    pub fn wait_for_everything(&mut self) {
+        self.wait_for_worker();
+        if let Some(p) = &mut self.pinned
+            && p.drain(true)
+        {
+            self.grid_version += 1;
+        }
+        if let Some(doc) = &self.doc {
+            self.cell_panel.ensure(doc, self.selection.cell, None);
+        }
+        self.cell_panel.wait();
+        self.changes_panel.wait();
+        if let Some(doc) = &self.doc {
+            let base = doc.params.clone();
+            self.sweep_panel.wait(&base);
+        }
     }
 
     // ----- worker results --------------------------------------------------------------------
@@ -461,9 +615,17 @@ impl GridscopeApp {
             Action::SetParams(p) => {
                 self.set_params(p);
             }
-            Action::SelectBeam { sensor, beam } => self.selection.beam = Some((sensor, beam)),
+            Action::SelectBeam { sensor, beam } => {
+                self.selection.beam = Some((sensor, beam));
+                if self.settings.inspector_tab == InspectorTab::Cell {
+                    self.settings.inspector_tab = InspectorTab::Beam;
+                }
+            }
             Action::ClearBeam => self.selection.beam = None,
-            Action::SelectCell(c) => self.selection.cell = Some(c),
+            Action::SelectCell(c) => {
+                self.selection.cell = Some(c);
+                self.settings.inspector_tab = InspectorTab::Cell;
+            }
             Action::OpenSession(p) => self.open_session(&p),
             Action::OpenDemo(n) => self.open_demo(n),
             Action::OpenParams(p) => self.open_params(&p),
@@ -471,6 +633,45 @@ impl GridscopeApp {
             Action::ExportBundle(p) => self.export_bundle(&p),
             Action::ExportView(p) => self.grid_view.request_export(p),
             Action::OpenAny(p) => self.open_any(&p),
+            Action::JumpTo {
+                frame,
+                sensor,
+                beam,
+            } => {
+                self.seek(frame);
+                self.selection.beam = Some((sensor, beam));
+            }
+            Action::FocusCell(c) => {
+                self.selection.cell = Some(c);
+                if let Some(doc) = &self.doc {
+                    self.grid_view.centre = doc.builder.spec().centre(c);
+                }
+            }
+            Action::PinA => self.pin(),
+            Action::UnpinA => {
+                self.pinned = None;
+                self.layer = Layer::Current;
+                self.grid_version += 1;
+            }
+            Action::SetLayer(l) => {
+                self.layer = l;
+                self.grid_version += 1;
+            }
+            Action::LoadReference(p) => self.load_reference(&p),
+            Action::LoadReferenceImage(r) => self.load_reference_image(&r),
+            Action::UseDemoReference(n) => self.use_demo_reference(n),
+            Action::StartSweep => {
+                if let (Some(doc), Some(r)) = (&self.doc, &self.reference) {
+                    self.sweep_panel
+                        .start(doc, r.grid.clone(), self.frame, self.repaint.clone());
+                }
+            }
+            Action::FindChanges => {
+                if let Some(doc) = &self.doc {
+                    self.changes_panel.start(doc, self.repaint.clone());
+                }
+            }
+            Action::ShowTab(t) => self.settings.inspector_tab = t,
         }
     }
 
@@ -538,11 +739,24 @@ impl GridscopeApp {
     /// Draws the whole window into `ui` and applies what the panels asked for.
     pub fn ui_root(&mut self, ui: &mut egui::Ui) {
         let ctx = ui.ctx().clone();
+        if self.repaint.is_none() {
+            self.repaint = Some(ctx.clone());
+        }
         self.worker.set_repaint_context(&ctx);
         let replies = self.worker.drain();
         self.take_replies(replies);
+        if let Some(p) = &mut self.pinned
+            && p.drain(false)
+            && self.layer != Layer::Current
+        {
+            self.grid_version += 1;
+        }
         if let Some(message) = self.grid_view.take_export_result() {
             self.notice = Some(message);
+        }
+        if let Some(doc) = &self.doc {
+            self.cell_panel
+                .ensure(doc, self.selection.cell, Some(ctx.clone()));
         }
 
         let mut actions: Vec<Action> = Vec::new();
@@ -586,37 +800,46 @@ impl GridscopeApp {
                         })?;
                         Some((sensor, b.reading))
                     });
-                    actions.extend(self.tuning.ui(ui, doc, reading));
+                    actions.extend(self.tuning.ui(ui, doc, reading, self.frame));
                 });
         }
+        let records = self.footprint_records().to_vec();
         if self.settings.show_inspector && self.doc.is_some() {
-            let records = self.footprint_records().to_vec();
-            let doc = self.doc.as_ref().expect("checked");
             egui::Panel::right("inspector")
                 .resizable(true)
                 .default_size(470.0)
                 .show(ui, |ui| {
-                    actions.extend(self.beam_panel.ui(
-                        ui,
-                        doc,
-                        self.frame,
-                        self.selection.beam,
-                        &records,
-                    ));
+                    actions.extend(self.inspector_ui(ui, &records));
                 });
         }
-        let records = self.footprint_records().to_vec();
         egui::CentralPanel::default().show(ui, |ui| {
-            let grid = self
+            let current = self
                 .partial
                 .as_ref()
                 .or(self.shown.as_ref().map(|s| &s.after));
+            let pinned = self
+                .pinned
+                .as_ref()
+                .and_then(|p| p.shown.as_ref().map(|s| (&s.1, p.builder.clamp_bounds())));
+            let own = self
+                .doc
+                .as_ref()
+                .map(|d| d.builder.clamp_bounds())
+                .unwrap_or((-1.0, 1.0));
+            let (grid, clamp, compare_with) = match (self.layer, pinned) {
+                (Layer::Pinned, Some((a, bounds))) => (Some(a), bounds, None),
+                (Layer::Difference, Some((a, _))) => (current, own, Some(a)),
+                _ => (current, own, None),
+            };
             actions.extend(self.grid_view.ui(
                 ui,
                 grid_view::ViewData {
                     doc: self.doc.as_ref(),
                     grid,
                     grid_version: self.grid_version,
+                    clamp,
+                    compare_with,
+                    layer: self.layer,
                     frame: self.frame,
                     settings: &self.settings,
                     selection: &self.selection,
@@ -627,9 +850,67 @@ impl GridscopeApp {
         for a in actions {
             self.apply(a);
         }
-        if self.worker.busy() {
+        if self.worker.busy() || self.pinned.as_ref().is_some_and(|p| p.busy()) {
             ctx.request_repaint_after(Duration::from_millis(100));
         }
+    }
+
+    /// The right-hand inspector: tabs for beam, cell, compare, score, sweep and changes.
+    fn inspector_ui(&mut self, ui: &mut egui::Ui, records: &[TouchRecord]) -> Vec<Action> {
+        let mut actions = Vec::new();
+        let Some(doc) = &self.doc else { return actions };
+        ui.horizontal_wrapped(|ui| {
+            for t in InspectorTab::ALL {
+                if ui
+                    .selectable_label(self.settings.inspector_tab == t, t.label())
+                    .clicked()
+                {
+                    actions.push(Action::ShowTab(t));
+                }
+            }
+        });
+        ui.separator();
+        let current = self.shown.as_ref().map(|s| (&s.after, self.grid_version));
+        match self.settings.inspector_tab {
+            InspectorTab::Beam => actions.extend(self.beam_panel.ui(
+                ui,
+                doc,
+                self.frame,
+                self.selection.beam,
+                records,
+            )),
+            InspectorTab::Cell => {
+                actions.extend(self.cell_panel.ui(ui, doc, self.frame, self.selection.cell))
+            }
+            InspectorTab::Compare => actions.extend(self.compare_panel.ui(
+                ui,
+                doc,
+                self.pinned.as_ref(),
+                self.layer,
+                current,
+            )),
+            InspectorTab::Score => {
+                let mut maps: Vec<(char, &Grid, u64)> = Vec::new();
+                if let Some((g, v)) = current {
+                    maps.push(('B', g, v));
+                }
+                if let Some(p) = &self.pinned
+                    && let Some((_, g)) = &p.shown
+                {
+                    maps.push(('A', g, p.version + (1 << 40)));
+                }
+                actions.extend(self.score_panel.ui(ui, doc, self.reference.as_ref(), &maps));
+            }
+            InspectorTab::Sweep => {
+                let base = doc.params.clone();
+                actions.extend(
+                    self.sweep_panel
+                        .ui(ui, doc, self.reference.is_some(), &base),
+                );
+            }
+            InspectorTab::Changes => actions.extend(self.changes_panel.ui(ui, doc, self.frame)),
+        }
+        actions
     }
 }
 

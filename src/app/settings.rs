@@ -13,6 +13,48 @@ pub const SETTINGS_KEY: &str = "gridscope.settings";
 /// How many recent files each list keeps.
 const RECENT_LIMIT: usize = 10;
 
+/// The tabs of the inspector panel.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub enum InspectorTab {
+    /// The selected beam.
+    #[default]
+    Beam,
+    /// The selected cell's history.
+    Cell,
+    /// A/B comparison.
+    Compare,
+    /// Scores against a reference.
+    Score,
+    /// Parameter sweeps.
+    Sweep,
+    /// Cells that changed class.
+    Changes,
+}
+
+impl InspectorTab {
+    /// All tabs, in display order.
+    pub const ALL: [InspectorTab; 6] = [
+        InspectorTab::Beam,
+        InspectorTab::Cell,
+        InspectorTab::Compare,
+        InspectorTab::Score,
+        InspectorTab::Sweep,
+        InspectorTab::Changes,
+    ];
+
+    /// The tab's title.
+    pub fn label(self) -> &'static str {
+        match self {
+            InspectorTab::Beam => "Beam",
+            InspectorTab::Cell => "Cell",
+            InspectorTab::Compare => "Compare",
+            InspectorTab::Score => "Score",
+            InspectorTab::Sweep => "Sweep",
+            InspectorTab::Changes => "Changes",
+        }
+    }
+}
+
 /// User choices kept between runs.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(default)]
@@ -33,6 +75,8 @@ pub struct Settings {
     pub show_tuning: bool,
     /// Show the inspector panel on the right.
     pub show_inspector: bool,
+    /// The inspector tab shown.
+    pub inspector_tab: InspectorTab,
 }
 
 impl Default for Settings {
@@ -46,6 +90,7 @@ impl Default for Settings {
             play_speed: 1.0,
             show_tuning: true,
             show_inspector: true,
+            inspector_tab: InspectorTab::Beam,
         }
     }
 }

@@ -21,6 +21,8 @@ pub struct TuningPanel {
     pub refusal: Option<String>,
     /// Which sensor the plot and the flip readout describe.
     focus: usize,
+    /// The frame range being entered for exclusion.
+    frame_range: Option<(usize, usize)>,
 }
 
 /// A probability of log-odds `l` in a form that never shows exactly 0 or 1.
@@ -112,6 +114,7 @@ impl TuningPanel {
         ui: &mut egui::Ui,
         doc: &Document,
         selected: Option<(usize, Reading)>,
+        frame: usize,
     ) -> Vec<Action> {
         let mut draft = self.draft.take().unwrap_or_else(|| doc.params.clone());
         if let Some((s, _)) = selected {
@@ -182,6 +185,8 @@ impl TuningPanel {
                 }
             }
             ui.separator();
+            changed |= self.exclusions_ui(ui, doc, &mut draft, frame);
+            ui.separator();
             self.plot_ui(ui, doc, &draft, selected);
         });
 
@@ -198,6 +203,80 @@ impl TuningPanel {
         }
         self.draft = (draft != doc.params).then_some(draft);
         actions
+    }
+
+    /// What is left out of the fusion: frame ranges, sensors and single beams.
+    fn exclusions_ui(
+        &mut self,
+        ui: &mut egui::Ui,
+        doc: &Document,
+        draft: &mut Params,
+        frame: usize,
+    ) -> bool {
+        let mut changed = false;
+        let ex = &mut draft.exclude;
+        ui.label(RichText::new("Leave out").strong())
+            .on_hover_text("Parts of the session left out of the fusion, saved with the parameters. Excluded frames show as blue bands on the timeline.");
+        let last = doc.session.frames.len().saturating_sub(1);
+        let mut remove = None;
+        for (k, r) in ex.frames.iter().enumerate() {
+            ui.horizontal(|ui| {
+                ui.label(format!("frames {}..={}", r.start(), r.end()));
+                if ui.small_button("put back").clicked() {
+                    remove = Some(k);
+                }
+            });
+        }
+        if let Some(k) = remove {
+            ex.frames.remove(k);
+            changed = true;
+        }
+        ui.horizontal(|ui| {
+            let (mut a, mut b) = self.frame_range.unwrap_or((frame, frame));
+            let la = ui.label("frames");
+            ui.add(egui::DragValue::new(&mut a).range(0..=last))
+                .labelled_by(la.id);
+            let lb = ui.label("to");
+            ui.add(egui::DragValue::new(&mut b).range(0..=last))
+                .labelled_by(lb.id);
+            self.frame_range = Some((a, b));
+            if ui
+                .button("Leave these frames out")
+                .on_hover_text("Leave frames from..to (inclusive) out of the fusion")
+                .clicked()
+            {
+                ex.frames.push(a.min(b)..=a.max(b));
+                changed = true;
+            }
+        });
+        for s in &doc.session.sensors {
+            let mut out = ex.sensors.contains(&s.id);
+            if ui
+                .checkbox(&mut out, format!("leave out sensor \"{}\"", s.id))
+                .changed()
+            {
+                if out {
+                    ex.sensors.push(s.id.clone());
+                } else {
+                    ex.sensors.retain(|id| id != &s.id);
+                }
+                changed = true;
+            }
+        }
+        let mut remove = None;
+        for (k, (f, id, b)) in ex.beams.iter().enumerate() {
+            ui.horizontal(|ui| {
+                ui.label(format!("beam {b} of \"{id}\" in frame {f}"));
+                if ui.small_button("put back").clicked() {
+                    remove = Some(k);
+                }
+            });
+        }
+        if let Some(k) = remove {
+            ex.beams.remove(k);
+            changed = true;
+        }
+        changed
     }
 
     /// The focus sensor's model along one beam, and the flip counts.
@@ -249,7 +328,7 @@ impl TuningPanel {
             .default_x_bounds(0.0, far)
             .height(200.0)
             .legend(Legend::default())
-            .x_axis_label("distance from the sensor (m)")
+            .custom_x_axes(super::plot_x_axis("distance from the sensor (m)"))
             .y_axis_label("increment (log-odds)")
             .include_y(params.clamp.min)
             .include_y(params.clamp.max)

@@ -1,6 +1,7 @@
 //! Integration test modules; shared helpers live here.
 
 mod cli;
+mod diagnosis;
 mod independent;
 mod samples;
 mod traversal;

@@ -220,3 +220,155 @@ fn a_refused_file_keeps_what_was_loaded() {
         other => panic!("{other:?}"),
     }
 }
+
+/// Clicks at a screen position with the given button.
+fn click_at(h: &mut Harness<'static, GridscopeApp>, pos: egui::Pos2, button: egui::PointerButton) {
+    h.event(egui::Event::PointerMoved(pos));
+    h.event(egui::Event::PointerButton {
+        pos,
+        button,
+        pressed: true,
+        modifiers: Default::default(),
+    });
+    h.event(egui::Event::PointerButton {
+        pos,
+        button,
+        pressed: false,
+        modifiers: Default::default(),
+    });
+    h.run_steps(2);
+}
+
+#[test]
+fn clicking_a_cell_shows_its_history_and_an_update_jumps_there() {
+    let mut h = harness();
+    let doorway = gridscope::Point2::new(7.02, 4.5);
+    let (cell, pos) = {
+        let app = h.state();
+        let spec = *app.doc.as_ref().unwrap().builder.spec();
+        let cell = spec.cell_at(doorway);
+        (
+            cell,
+            app.grid_view
+                .transform
+                .unwrap()
+                .to_screen(spec.centre(cell)),
+        )
+    };
+    click_at(&mut h, pos, egui::PointerButton::Secondary);
+    assert_eq!(h.state().selection.cell, Some(cell));
+    assert_eq!(
+        h.state().settings.inspector_tab,
+        gridscope::app::InspectorTab::Cell
+    );
+    h.state_mut().wait_for_everything();
+    h.run_steps(2);
+    let updates = {
+        let app = h.state();
+        let doc = app.doc.as_ref().unwrap();
+        let expected = doc.builder.cell_history(cell, doc.session.frames.len());
+        let (_, got) = app.cell_panel.history.as_ref().expect("history computed");
+        assert_eq!(got, &expected);
+        expected
+    };
+    assert!(
+        h.query_by_label_contains(&format!("{} updates", updates.len()))
+            .is_some()
+    );
+    // Click the first update's row (its frame number, inside the inspector on the right).
+    let first = updates[0];
+    let label = first.frame.to_string();
+    let panel = h.get_by_label("Cell history").rect();
+    let row = h
+        .get_all_by_label(&label)
+        .filter(|n| {
+            n.rect().left() >= panel.left() - 2.0 && n.rect().top() > panel.bottom() + 200.0
+        })
+        .min_by(|a, b| a.rect().top().total_cmp(&b.rect().top()))
+        .expect("the first update is listed")
+        .rect()
+        .center();
+    click_at(&mut h, row, egui::PointerButton::Primary);
+    h.state_mut().wait_for_everything();
+    assert_eq!(h.state().frame, first.frame);
+    assert_eq!(h.state().selection.beam, Some((first.sensor, first.beam)));
+}
+
+#[test]
+fn pinning_a_and_changing_b_shows_the_difference() {
+    let mut h = harness();
+    h.get_by_label("Compare").click();
+    h.run_steps(2);
+    h.get_by_label("Pin current parameters as A").click();
+    h.run_steps(2);
+    assert!(h.state().pinned.is_some());
+    h.get_by_role_and_label(Role::Slider, "max")
+        .set_value_accesskit(3.5);
+    h.run_steps(2);
+    h.state_mut().wait_for_everything();
+    h.run_steps(3);
+    let (a, b) = {
+        let app = h.state();
+        let a = app
+            .pinned
+            .as_ref()
+            .unwrap()
+            .shown
+            .as_ref()
+            .expect("A was rebuilt")
+            .1
+            .clone();
+        (a, app.shown.as_ref().unwrap().after.clone())
+    };
+    assert_eq!(h.state().pinned.as_ref().unwrap().params.clamp.max, 50.0);
+    let changed = gridscope::score::class_changes(&a, &b)
+        .unwrap()
+        .iter()
+        .map(|c| c.cells.len())
+        .sum::<usize>();
+    assert!(changed > 0);
+    assert!(
+        h.query_by_label(&format!("{changed} cells changed class"))
+            .is_some(),
+        "the count is shown"
+    );
+    assert!(
+        h.query_by_label("clamp.max").is_some(),
+        "the differing parameter is listed"
+    );
+    h.get_by_label("Difference").click();
+    h.run_steps(2);
+    assert_eq!(h.state().layer, gridscope::app::Layer::Difference);
+}
+
+#[test]
+fn leaving_frames_out_changes_the_map_and_is_saved_with_the_parameters() {
+    let mut h = harness();
+    let before = h.state().shown.as_ref().unwrap().after.clone();
+    h.get_by_role_and_label(Role::SpinButton, "frames")
+        .set_value_accesskit(240.0);
+    h.run_steps(1);
+    h.get_by_role_and_label(Role::SpinButton, "to")
+        .set_value_accesskit(479.0);
+    h.run_steps(1);
+    h.get_by_label("Leave these frames out").click();
+    h.run_steps(2);
+    h.state_mut().wait_for_everything();
+    h.run_steps(2);
+    let app = h.state();
+    let doc = app.doc.as_ref().unwrap();
+    assert_eq!(doc.params.exclude.frames, vec![240..=479]);
+    let after = &app.shown.as_ref().unwrap().after;
+    assert_ne!(after, &before);
+    // With the shut door's frames left out, the doorway cell is free at the end.
+    let cell = doc
+        .builder
+        .spec()
+        .cell_at(gridscope::Point2::new(7.02, 4.5));
+    assert!(after.get(cell).unwrap() < 0.0);
+    let dir = scratch("window-exclusions");
+    let path = dir.join("left-out.params.ron");
+    h.state_mut().apply(Action::SaveParams(path.clone()));
+    let saved = gridscope::Params::load(&path).unwrap();
+    assert_eq!(saved.exclude.frames, vec![240..=479]);
+}

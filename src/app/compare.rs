@@ -1,0 +1,331 @@
+//! A/B comparison: pin the current parameters as A, keep tuning (B), and view A, B or the
+//! cells whose class differs between them, with counts.
+//!
+//! A has a rebuild worker of its own, so both maps follow the timeline in the background.
+
+use super::worker::{Reply, Worker};
+use super::{Action, Document};
+use crate::fusion::MapBuilder;
+use crate::grid::Grid;
+use crate::params::Params;
+use crate::score::{CellClass, CompareError, for_each_shared};
+use egui::{Color32, RichText};
+use std::collections::BTreeMap;
+use std::sync::Arc;
+
+/// Which map the view shows.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub enum Layer {
+    /// The current parameters (B).
+    #[default]
+    Current,
+    /// The pinned parameters (A).
+    Pinned,
+    /// Cells whose class differs between A and B.
+    Difference,
+}
+
+/// The pinned parameters and their map.
+pub struct Pinned {
+    /// A's parameters.
+    pub params: Params,
+    /// A's builder.
+    pub builder: Arc<MapBuilder>,
+    worker: Worker,
+    generation: u64,
+    /// A's grid after the current frame, once delivered: (frame, grid).
+    pub shown: Option<(usize, Grid)>,
+    /// Bumped when `shown` changes.
+    pub version: u64,
+}
+
+impl Pinned {
+    /// Pins `doc`'s current parameters and starts A's rebuild at `frame`.
+    pub fn pin(doc: &Document, frame: usize, ctx: Option<&egui::Context>) -> Pinned {
+        let worker = Worker::spawn();
+        if let Some(ctx) = ctx {
+            worker.set_repaint_context(ctx);
+        }
+        let mut p = Pinned {
+            params: doc.params.clone(),
+            builder: doc.builder.clone(),
+            worker,
+            generation: 1,
+            shown: None,
+            version: 0,
+        };
+        p.worker
+            .request(p.generation, Some(p.builder.clone()), frame);
+        p
+    }
+
+    /// Follows the timeline.
+    pub fn seek(&mut self, frame: usize) {
+        self.worker.request(self.generation, None, frame);
+    }
+
+    /// Takes finished work; returns whether A's grid changed.
+    pub fn drain(&mut self, wait: bool) -> bool {
+        let replies = if wait {
+            self.worker.wait(std::time::Duration::from_secs(120))
+        } else {
+            self.worker.drain()
+        };
+        let mut changed = false;
+        for r in replies {
+            if let Reply::Ready { frame, after, .. } = r {
+                self.shown = Some((frame, after));
+                self.version += 1;
+                changed = true;
+            }
+        }
+        changed
+    }
+
+    /// Whether A is still being rebuilt.
+    pub fn busy(&self) -> bool {
+        self.worker.busy()
+    }
+}
+
+/// Cell counts by (class in A, class in B).
+pub type Transitions = BTreeMap<(CellClass, CellClass), u64>;
+
+/// Counts of cells by (class in A, class in B), over the cells the two maps share.
+pub fn transition_counts(a: &Grid, b: &Grid) -> Result<Transitions, CompareError> {
+    let mut counts = BTreeMap::new();
+    for_each_shared(b, a, |vb, va, _| {
+        *counts
+            .entry((CellClass::of(va), CellClass::of(vb)))
+            .or_insert(0) += 1;
+    })?;
+    Ok(counts)
+}
+
+/// Colour of a cell in the difference view: the direction of the change, or a faint grey of
+/// B's class where nothing changed.
+pub fn difference_colour(a: CellClass, b: CellClass) -> Color32 {
+    use CellClass::*;
+    match (a, b) {
+        (Free, Occupied) => Color32::from_rgb(230, 60, 40),
+        (Occupied, Free) => Color32::from_rgb(40, 200, 230),
+        (Unknown, Occupied) => Color32::from_rgb(245, 160, 40),
+        (Unknown, Free) => Color32::from_rgb(120, 220, 120),
+        (Occupied, Unknown) | (Free, Unknown) => Color32::from_rgb(190, 110, 230),
+        (_, Occupied) => Color32::from_gray(70),
+        (_, Free) => Color32::from_gray(200),
+        (_, Unknown) => Color32::from_gray(130),
+    }
+}
+
+/// Pixels of the difference view over B's grid, north row first.
+pub fn difference_pixels(a: &Grid, b: &Grid) -> Result<egui::ColorImage, CompareError> {
+    let spec = b.spec();
+    let (w, h) = (spec.width as usize, spec.height as usize);
+    let mut pixels = vec![Color32::from_gray(110); w * h];
+    for_each_shared(b, a, |vb, va, cell| {
+        let north_row = h - 1 - cell.row as usize;
+        pixels[north_row * w + cell.col as usize] =
+            difference_colour(CellClass::of(va), CellClass::of(vb));
+    })?;
+    Ok(egui::ColorImage::new([w, h], pixels))
+}
+
+fn class_name(c: CellClass) -> &'static str {
+    match c {
+        CellClass::Free => "free",
+        CellClass::Unknown => "unknown",
+        CellClass::Occupied => "occupied",
+    }
+}
+
+/// The parameters that differ between A and B, as (field, A, B) text.
+pub fn differing_fields(a: &Params, b: &Params) -> Vec<(String, String, String)> {
+    let mut out = Vec::new();
+    let mut field = |name: &str, x: String, y: String| {
+        if x != y {
+            out.push((name.to_string(), x, y));
+        }
+    };
+    field(
+        "resolution",
+        a.resolution.to_string(),
+        b.resolution.to_string(),
+    );
+    field("prior", a.prior.to_string(), b.prior.to_string());
+    field(
+        "clamp.min",
+        a.clamp.min.to_string(),
+        b.clamp.min.to_string(),
+    );
+    field(
+        "clamp.max",
+        a.clamp.max.to_string(),
+        b.clamp.max.to_string(),
+    );
+    field(
+        "fusion",
+        format!("{:?}", a.fusion),
+        format!("{:?}", b.fusion),
+    );
+    field(
+        "no_return",
+        format!("{:?}", a.no_return),
+        format!("{:?}", b.no_return),
+    );
+    field(
+        "default_model",
+        format!("{:?}", a.default_model),
+        format!("{:?}", b.default_model),
+    );
+    field(
+        "models",
+        format!("{:?}", a.models),
+        format!("{:?}", b.models),
+    );
+    field(
+        "extent",
+        format!("{:?}", a.extent),
+        format!("{:?}", b.extent),
+    );
+    field(
+        "exclude",
+        format!("{:?}", a.exclude),
+        format!("{:?}", b.exclude),
+    );
+    out
+}
+
+/// Compare panel state.
+#[derive(Default)]
+pub struct ComparePanel {
+    counts: Option<((u64, u64), Result<Transitions, CompareError>)>,
+}
+
+impl ComparePanel {
+    /// Draws the panel. `b` is the current grid and `b_version` its version.
+    pub fn ui(
+        &mut self,
+        ui: &mut egui::Ui,
+        doc: &Document,
+        pinned: Option<&Pinned>,
+        layer: Layer,
+        b: Option<(&Grid, u64)>,
+    ) -> Vec<Action> {
+        let mut actions = Vec::new();
+        ui.heading("Compare A and B");
+        ui.label("A is a pinned set of parameters; B is whatever the tuning panel holds now.");
+        ui.horizontal(|ui| {
+            if ui
+                .button("Pin current parameters as A")
+                .on_hover_text("Keep the current parameters and their map as A; tune on as B")
+                .clicked()
+            {
+                actions.push(Action::PinA);
+            }
+            if pinned.is_some() && ui.button("Unpin A").clicked() {
+                actions.push(Action::UnpinA);
+            }
+        });
+        let Some(a) = pinned else {
+            return actions;
+        };
+        ui.horizontal(|ui| {
+            ui.label("show");
+            for (l, name, tip) in [
+                (
+                    Layer::Current,
+                    "B (current)",
+                    "The map with the current parameters",
+                ),
+                (
+                    Layer::Pinned,
+                    "A (pinned)",
+                    "The map with the pinned parameters",
+                ),
+                (
+                    Layer::Difference,
+                    "Difference",
+                    "Cells whose class (occupied / free / unknown) differs, coloured by direction",
+                ),
+            ] {
+                if ui
+                    .selectable_label(layer == l, name)
+                    .on_hover_text(tip)
+                    .clicked()
+                {
+                    actions.push(Action::SetLayer(l));
+                }
+            }
+        });
+        if a.params != doc.params && ui.button("Make A current again").clicked() {
+            actions.push(Action::SetParams(a.params.clone()));
+        }
+        let fields = differing_fields(&a.params, &doc.params);
+        if fields.is_empty() {
+            ui.label("A and B have the same parameters: change something in the tuning panel.");
+        } else {
+            egui::Grid::new("ab fields").striped(true).show(ui, |ui| {
+                ui.strong("parameter");
+                ui.strong("A");
+                ui.strong("B");
+                ui.end_row();
+                for (f, x, y) in &fields {
+                    ui.label(f);
+                    ui.label(RichText::new(x).monospace());
+                    ui.label(RichText::new(y).monospace());
+                    ui.end_row();
+                }
+            });
+        }
+        if a.busy() {
+            ui.horizontal(|ui| {
+                ui.spinner();
+                ui.label("rebuilding A...");
+            });
+        }
+        let (Some((ga_frame, ga)), Some((gb, b_version))) = (a.shown.as_ref(), b) else {
+            return actions;
+        };
+        let key = (a.version, b_version);
+        if self.counts.as_ref().map(|c| c.0) != Some(key) {
+            self.counts = Some((key, transition_counts(ga, gb)));
+        }
+        ui.separator();
+        ui.label(format!(
+            "cells by class in A and in B (A at frame {ga_frame}):"
+        ));
+        match &self.counts.as_ref().expect("just filled").1 {
+            Err(e) => {
+                ui.colored_label(Color32::from_rgb(255, 110, 90), e.to_string());
+            }
+            Ok(counts) => {
+                let changed: u64 = counts
+                    .iter()
+                    .filter(|((x, y), _)| x != y)
+                    .map(|(_, n)| n)
+                    .sum();
+                ui.label(format!("{changed} cells changed class"));
+                egui::Grid::new("ab counts").striped(true).show(ui, |ui| {
+                    ui.label("");
+                    ui.strong("A -> B");
+                    ui.strong("cells");
+                    ui.end_row();
+                    for ((x, y), n) in counts {
+                        if x == y {
+                            continue;
+                        }
+                        let (rect, _) =
+                            ui.allocate_exact_size(egui::vec2(10.0, 10.0), egui::Sense::hover());
+                        ui.painter()
+                            .rect_filled(rect, 2.0, difference_colour(*x, *y));
+                        ui.label(format!("{} -> {}", class_name(*x), class_name(*y)));
+                        ui.label(n.to_string());
+                        ui.end_row();
+                    }
+                });
+            }
+        }
+        actions
+    }
+}

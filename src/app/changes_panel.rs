@@ -20,9 +20,11 @@ pub struct ChangesPanel {
     job: Option<(u64, Job<Found>)>,
     /// The clusters found, for (generation, from, to).
     pub found: Option<((u64, usize, usize), Vec<ChangeCluster>)>,
-    /// The cluster stepped to.
+    /// The cluster stepped to (an index into the clusters shown).
     pub current: usize,
     problem: Option<String>,
+    /// Show every transition, including those from or to unknown.
+    pub include_unknown: bool,
 }
 
 fn name(c: CellClass) -> &'static str {
@@ -119,9 +121,18 @@ impl ChangesPanel {
         if let Some(p) = &self.problem {
             ui.colored_label(egui::Color32::from_rgb(255, 110, 90), p);
         }
-        let Some(((g, from, to), clusters)) = &self.found else {
+        ui.checkbox(&mut self.include_unknown, "include cells that were or became unknown")
+            .on_hover_text("Off: only occupied <-> free flips, which is what a moved object or a door leaves behind");
+        let Some(((g, from, to), all)) = &self.found else {
             return actions;
         };
+        let clusters: Vec<&ChangeCluster> = all
+            .iter()
+            .filter(|c| {
+                self.include_unknown || (c.from != CellClass::Unknown && c.to != CellClass::Unknown)
+            })
+            .collect();
+        self.current = self.current.min(clusters.len().saturating_sub(1));
         if *g != doc.generation {
             ui.label("The parameters changed since this search; search again to update it.");
         }
@@ -172,7 +183,7 @@ impl ChangesPanel {
             });
         if let Some(k) = go {
             self.current = k;
-            let c = &clusters[k];
+            let c = clusters[k];
             actions.push(Action::FocusCell(c.cells[c.cells.len() / 2]));
         }
         actions

@@ -372,3 +372,33 @@ fn leaving_frames_out_changes_the_map_and_is_saved_with_the_parameters() {
     let saved = gridscope::Params::load(&path).unwrap();
     assert_eq!(saved.exclude.frames, vec![240..=479]);
 }
+
+#[test]
+fn the_change_finder_finds_the_door_closing() {
+    let mut h = harness();
+    h.get_by_label("Changes").click();
+    h.run_steps(2);
+    h.state_mut().changes_panel.from = 200;
+    h.state_mut().changes_panel.to = 300;
+    h.get_by_label("Find changes").click();
+    h.run_steps(1);
+    h.state_mut().wait_for_everything();
+    h.run_steps(2);
+    let app = h.state();
+    let (_, clusters) = app.changes_panel.found.as_ref().expect("search finished");
+    let spec = app.doc.as_ref().unwrap().builder.spec();
+    let door = spec.cell_at(gridscope::Point2::new(7.02, 4.5));
+    // The door shut at frame 240: its cells went from free to occupied within the window.
+    let cluster = clusters
+        .iter()
+        .find(|c| c.cells.contains(&door))
+        .expect("the doorway changed");
+    assert_eq!(
+        (cluster.from, cluster.to),
+        (
+            gridscope::score::CellClass::Free,
+            gridscope::score::CellClass::Occupied
+        )
+    );
+    assert!(cluster.cells.len() >= 10, "{} cells", cluster.cells.len());
+}

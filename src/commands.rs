@@ -372,3 +372,48 @@ pub fn sweep(args: &SweepArgs, out: &mut dyn Write) -> Result<(), Error> {
     }
     Ok(())
 }
+
+/// Converts a session between the inline layout and the packed one (arrays beside a header).
+pub fn pack(
+    session_arg: &Path,
+    out_path: &Path,
+    inline: bool,
+    out: &mut dyn Write,
+) -> Result<(), Error> {
+    let session = load_session(session_arg)?;
+    let written = if inline {
+        write_all_atomically(&[(out_path.to_path_buf(), session.to_ron_string().into_bytes())])?;
+        vec![out_path.to_path_buf()]
+    } else {
+        crate::packed::write_packed(&session, out_path).map_err(|e| match e {
+            Error::Input(mut ie) => {
+                ie.file = session_arg.display().to_string();
+                Error::Input(ie)
+            }
+            other => other,
+        })?
+    };
+    for p in written {
+        let _ = writeln!(out, "wrote {}", p.display());
+    }
+    Ok(())
+}
+
+/// Runs the benchmark and prints `key=value` lines; progress goes to stderr.
+pub fn bench(
+    opts: &crate::bench::BenchOptions,
+    write_plan: Option<&Path>,
+    out: &mut dyn Write,
+) -> Result<(), Error> {
+    if let Some(p) = write_plan {
+        let plan = crate::sim::building_plan(&opts.building);
+        let cfg = ron::ser::PrettyConfig::new().struct_names(false);
+        let text = ron::ser::to_string_pretty(&plan, cfg).expect("a plan serialises");
+        write_all_atomically(&[(p.to_path_buf(), text.into_bytes())])?;
+    }
+    let lines = crate::bench::run(opts, &mut |m| eprintln!("bench: {m}"))?;
+    for (k, v) in lines {
+        let _ = writeln!(out, "{k}={v}");
+    }
+    Ok(())
+}

@@ -112,25 +112,36 @@ pub fn grey_image(grid: &Grid) -> Vec<u8> {
 /// northern-most row first.
 pub fn npy_bytes(grid: &Grid) -> Vec<u8> {
     let s = grid.spec();
-    let dict = format!(
-        "{{'descr': '<f4', 'fortran_order': False, 'shape': ({}, {}), }}",
-        s.height, s.width
-    );
-    // Magic (6) + version (2) + header length (2) + dict + padding + '\n' is a multiple of 64.
-    let unpadded = 10 + dict.len() + 1;
-    let pad = (64 - unpadded % 64) % 64;
-    let header_len = dict.len() + pad + 1;
-    let mut out = Vec::with_capacity(10 + header_len + s.cells() * 4);
-    out.extend_from_slice(b"\x93NUMPY\x01\x00");
-    out.extend_from_slice(&(header_len as u16).to_le_bytes());
-    out.extend_from_slice(dict.as_bytes());
-    out.extend(std::iter::repeat_n(b' ', pad));
-    out.push(b'\n');
+    let mut out = npy_header("<f4", &[s.height as usize, s.width as usize]);
+    out.reserve(s.cells() * 4);
     for row in grid.rows_north_first() {
         for v in row {
             out.extend_from_slice(&v.to_le_bytes());
         }
     }
+    out
+}
+
+/// The header of a NumPy version 1.0 file of C-ordered `descr` elements with `shape`, padded
+/// so that the data that follows starts on a 64-byte boundary.
+pub fn npy_header(descr: &str, shape: &[usize]) -> Vec<u8> {
+    let dims: Vec<String> = shape.iter().map(|d| d.to_string()).collect();
+    let shape_text = if shape.len() == 1 {
+        format!("({},)", dims[0])
+    } else {
+        format!("({})", dims.join(", "))
+    };
+    let dict = format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': {shape_text}, }}");
+    // Magic (6) + version (2) + header length (2) + dict + padding + '\n' is a multiple of 64.
+    let unpadded = 10 + dict.len() + 1;
+    let pad = (64 - unpadded % 64) % 64;
+    let header_len = dict.len() + pad + 1;
+    let mut out = Vec::with_capacity(10 + header_len);
+    out.extend_from_slice(b"\x93NUMPY\x01\x00");
+    out.extend_from_slice(&(header_len as u16).to_le_bytes());
+    out.extend_from_slice(dict.as_bytes());
+    out.extend(std::iter::repeat_n(b' ', pad));
+    out.push(b'\n');
     out
 }
 

@@ -5,14 +5,42 @@
 //! neighbour whose boundary the segment crosses first, until the reach. `Cone` beams take every
 //! cell whose centre lies inside the sector, plus the origin's cell.
 //!
-//! Design decision: the traversal never accumulates crossing parameters. The parameter at
-//! which the segment leaves column `c` is computed from `c` itself (`c * a + b`), so a walk
-//! that starts part-way along a segment (as a parallel worker owning a band of rows does)
-//! reproduces the cells of a walk from the origin bit for bit.
+//! Design decision: crossing parameters are integers. The distance along the segment at which
+//! it leaves column `c` is kept in fixed point ([`UNITS_PER_METRE`] units per metre) as
+//! `first + k * step` for the k-th column along the walk, so stepping is an exact integer
+//! addition, and a walk that starts part-way along a segment (as a parallel worker owning a
+//! tile does) computes the same integers directly and reproduces the cells of a walk from the
+//! origin bit for bit. The parameters are rounded once per segment, to 2^-40 m, which only
+//! matters where a segment passes within about a picometre of a cell corner (where the
+//! contract accepts either neighbour order).
 
 use crate::geometry::{Point2, wrap_angle};
 use crate::grid::{CellIndex, GridSpec, WorldBox};
 use std::f64::consts::{FRAC_PI_2, PI};
+
+/// Fixed-point units of a crossing parameter per metre.
+pub const UNITS_PER_METRE: f64 = (1u64 << 40) as f64;
+
+/// A crossing parameter too large to be reached by any segment (an axis never crossed).
+const NEVER: i64 = i64::MAX / 4;
+
+/// A distance along a segment in fixed point, [`UNITS_PER_METRE`] units per metre; saturates
+/// at [`NEVER`] for distances beyond any segment (and infinity).
+pub fn param(metres: f64) -> i64 {
+    let u = metres * UNITS_PER_METRE;
+    if u >= NEVER as f64 {
+        NEVER
+    } else if u <= -(NEVER as f64) {
+        -NEVER
+    } else {
+        crate::grid::floor_i64(u + 0.5)
+    }
+}
+
+/// Metres of a fixed-point distance along a segment.
+pub fn metres(p: i64) -> f64 {
+    p as f64 / UNITS_PER_METRE
+}
 
 /// Exact traversal of one segment across a grid's lattice.
 #[derive(Clone, Copy, Debug)]
@@ -23,14 +51,18 @@ pub struct RayWalk {
     pub step_col: i64,
     /// Row step, -1, 0 or +1.
     pub step_row: i64,
-    /// Segment length, metres: cells entered at or past it are not touched.
+    /// Segment length, metres.
     pub length: f64,
-    // Crossing parameter (metres along the segment) of the boundary that leaves column c:
-    // c * col_a + col_b; likewise for rows.
-    col_a: f64,
-    col_b: f64,
-    row_a: f64,
-    row_b: f64,
+    /// Segment length, fixed point: cells entered at or past it are not touched.
+    pub len: i64,
+    /// Unit direction (x, y).
+    dir: (f64, f64),
+    /// Fixed-point parameter at which the segment leaves the start column, and the increase
+    /// per column step ([`NEVER`] when it has no column step); likewise for rows.
+    col_first: i64,
+    col_step: i64,
+    row_first: i64,
+    row_step: i64,
 }
 
 impl RayWalk {
@@ -39,6 +71,14 @@ impl RayWalk {
     pub fn new(spec: &GridSpec, origin: Point2, heading: f64, length: f64) -> RayWalk {
         let (dy, dx) = heading.sin_cos();
         Self::from_direction(spec, origin, dx, dy, length)
+    }
+
+    /// The end point of the segment, metres (from the same direction the walk uses).
+    pub fn end(&self, origin: Point2) -> Point2 {
+        Point2::new(
+            origin.x + self.length * self.dir.0,
+            origin.y + self.length * self.dir.1,
+        )
     }
 
     /// As [`RayWalk::new`], with a unit direction vector `(dx, dy)`.
@@ -52,41 +92,65 @@ impl RayWalk {
         let start = spec.cell_at(origin);
         let res = spec.resolution;
         // Leaving column c towards +x crosses x = ox + (c + 1) * res; towards -x, x = ox + c * res.
-        let axis = |d: f64, o: f64, p: f64| -> (i64, f64, f64) {
-            if d > 0.0 {
-                let inv = 1.0 / d;
-                (1, res * inv, (o + res - p) * inv)
-            } else if d < 0.0 {
-                let inv = 1.0 / d;
-                (-1, res * inv, (o - p) * inv)
-            } else {
-                (0, 0.0, f64::INFINITY)
+        let axis = |d: f64, o: f64, p: f64, c: i64| -> (i64, i64, i64) {
+            if d == 0.0 || !d.is_finite() {
+                return (0, NEVER, NEVER);
             }
+            let step = if d > 0.0 { 1 } else { -1 };
+            let boundary = if d > 0.0 {
+                o + (c as f64 + 1.0) * res
+            } else {
+                o + c as f64 * res
+            };
+            (step, param((boundary - p) / d), param(res / d.abs()).max(1))
         };
-        let (step_col, col_a, col_b) = axis(dx, spec.origin.x, origin.x);
-        let (step_row, row_a, row_b) = axis(dy, spec.origin.y, origin.y);
+        let (step_col, col_first, col_step) = axis(dx, spec.origin.x, origin.x, start.col);
+        let (step_row, row_first, row_step) = axis(dy, spec.origin.y, origin.y, start.row);
         RayWalk {
             start,
             step_col,
             step_row,
             length,
-            col_a,
-            col_b,
-            row_a,
-            row_b,
+            len: param(length),
+            dir: (dx, dy),
+            col_first,
+            col_step,
+            row_first,
+            row_step,
         }
     }
 
-    /// Parameter (metres from the origin) at which the segment leaves column `c`.
+    /// Fixed-point parameter at which the segment leaves column `c` (for columns at or after
+    /// the start along the walk).
     #[inline(always)]
-    pub fn leave_col(&self, c: i64) -> f64 {
-        c as f64 * self.col_a + self.col_b
+    pub fn leave_col(&self, c: i64) -> i64 {
+        if self.step_col == 0 {
+            return NEVER;
+        }
+        let k = (c - self.start.col) * self.step_col;
+        self.col_first
+            .saturating_add(k.saturating_mul(self.col_step))
     }
 
-    /// Parameter (metres from the origin) at which the segment leaves row `r`.
+    /// Fixed-point parameter at which the segment leaves row `r`.
     #[inline(always)]
-    pub fn leave_row(&self, r: i64) -> f64 {
-        r as f64 * self.row_a + self.row_b
+    pub fn leave_row(&self, r: i64) -> i64 {
+        if self.step_row == 0 {
+            return NEVER;
+        }
+        let k = (r - self.start.row) * self.step_row;
+        self.row_first
+            .saturating_add(k.saturating_mul(self.row_step))
+    }
+
+    /// Increase of the leaving parameter per column step ([`NEVER`] without column steps).
+    pub fn col_step(&self) -> i64 {
+        self.col_step
+    }
+
+    /// Increase of the leaving parameter per row step ([`NEVER`] without row steps).
+    pub fn row_step(&self) -> i64 {
+        self.row_step
     }
 
     /// The cell after `c` along the segment, or `None` when the segment ends inside `c`.
@@ -96,9 +160,39 @@ impl RayWalk {
         let tc = self.leave_col(c.col);
         let tr = self.leave_row(c.row);
         if tc < tr {
-            (tc < self.length).then_some(CellIndex::new(c.col + self.step_col, c.row))
+            (tc < self.len).then_some(CellIndex::new(c.col + self.step_col, c.row))
         } else {
-            (tr < self.length).then_some(CellIndex::new(c.col, c.row + self.step_row))
+            (tr < self.len).then_some(CellIndex::new(c.col, c.row + self.step_row))
+        }
+    }
+
+    /// Calls `visit(cell, t_enter)` on every cell of the segment, in order from the origin,
+    /// with the fixed-point parameter at which it is entered (0 for the first), until `visit`
+    /// returns `false` or the segment ends. Steps are integer additions.
+    #[inline]
+    pub fn for_each_entered(&self, mut visit: impl FnMut(CellIndex, i64) -> bool) {
+        let mut c = self.start;
+        let (mut tc, mut tr) = (self.col_first, self.row_first);
+        let mut t_enter = 0;
+        loop {
+            if !visit(c, t_enter) {
+                return;
+            }
+            if tc < tr {
+                if tc >= self.len {
+                    return;
+                }
+                c.col += self.step_col;
+                t_enter = tc;
+                tc = tc.saturating_add(self.col_step);
+            } else {
+                if tr >= self.len {
+                    return;
+                }
+                c.row += self.step_row;
+                t_enter = tr;
+                tr = tr.saturating_add(self.row_step);
+            }
         }
     }
 
@@ -106,16 +200,7 @@ impl RayWalk {
     /// `false` or the segment ends.
     #[inline]
     pub fn for_each(&self, mut visit: impl FnMut(CellIndex) -> bool) {
-        let mut c = self.start;
-        loop {
-            if !visit(c) {
-                return;
-            }
-            match self.next(c) {
-                Some(n) => c = n,
-                None => return,
-            }
-        }
+        self.for_each_entered(|c, _| visit(c));
     }
 
     /// All cells of the segment, in order (for tests and inspection; the fusion loop walks
@@ -129,45 +214,71 @@ impl RayWalk {
         v
     }
 
+    /// Whether the segment runs closer to the x axis than to the y axis (it crosses column
+    /// boundaries at least as often as row boundaries).
+    pub fn mostly_along_x(&self) -> bool {
+        self.col_step <= self.row_step
+    }
+
+    /// How many column crossings the segment makes per row crossing (infinite when it never
+    /// crosses a row boundary, 0 when it never crosses a column boundary).
+    pub fn cols_per_row(&self) -> f64 {
+        if self.step_col == 0 {
+            0.0
+        } else if self.step_row == 0 {
+            f64::INFINITY
+        } else {
+            self.row_step as f64 / self.col_step as f64
+        }
+    }
+
+    /// The first column from `from` (at or after the start, in the walk's column direction)
+    /// that the segment leaves at a parameter `>= t` (or `> t` when `strict`). Exact integer
+    /// arithmetic. Requires a column step.
+    #[inline(always)]
+    pub fn first_col_leaving(&self, from: i64, t: i64, strict: bool) -> i64 {
+        from + self.step_col * steps_until(self.leave_col(from), self.col_step, t, strict)
+    }
+
+    /// The first row from `from` that the segment leaves at a parameter `>= t` (or `> t` when
+    /// `strict`). Requires a row step.
+    #[inline(always)]
+    pub fn first_row_leaving(&self, from: i64, t: i64, strict: bool) -> i64 {
+        from + self.step_row * steps_until(self.leave_row(from), self.row_step, t, strict)
+    }
+
     /// The first cell of the segment whose row is `row` or beyond (in the walk's row
-    /// direction), exactly as a walk from the origin would reach it, or `None` if the segment
-    /// ends first. Requires a row step (a segment moving north or south) and `row` past the
-    /// start row.
-    pub fn enter_row(&self, row: i64) -> Option<CellIndex> {
+    /// direction), exactly as a walk from the origin would reach it, with the parameter at
+    /// which it is entered; `None` if the segment ends first. Requires a row step (a segment
+    /// moving north or south) and `row` past the start row.
+    pub fn enter_row(&self, row: i64) -> Option<(CellIndex, i64)> {
         debug_assert!(self.step_row != 0);
         // The walk reaches `row` by a row step out of row `row - step` at parameter t_r,
         // taken from the first column c with leave_col(c) >= t_r (a column step is taken only
         // while leave_col(c) < leave_row).
-        let prev = row - self.step_row;
-        let t_r = self.leave_row(prev);
-        if t_r >= self.length {
+        let t_r = self.leave_row(row - self.step_row);
+        if t_r >= self.len {
             return None;
         }
-        let mut c = self.start.col;
-        if self.step_col != 0 {
-            // Estimate the column from the continuous solution, then settle it with the same
-            // comparisons the walk makes. leave_col is monotone along the walk.
-            let est = ((t_r - self.col_b) / self.col_a).floor();
-            let lo = self.start.col as f64;
-            let guess = if self.step_col > 0 {
-                est.max(lo)
-            } else {
-                (est + 1.0).min(lo)
-            };
-            if guess.is_finite() && guess.abs() < 1e15 {
-                c = guess as i64;
-            }
-            // Move back while the previous column would already have taken the row step.
-            while c != self.start.col && self.leave_col(c - self.step_col) >= t_r {
-                c -= self.step_col;
-            }
-            // Move forward while this column is left before the row boundary.
-            while self.leave_col(c) < t_r {
-                c += self.step_col;
-            }
-        }
-        Some(CellIndex::new(c, row))
+        let c = if self.step_col != 0 {
+            self.first_col_leaving(self.start.col, t_r, false)
+        } else {
+            self.start.col
+        };
+        Some((CellIndex::new(c, row), t_r))
     }
+}
+
+/// Steps k >= 0 from a position whose parameter is `at`, the parameter growing by `step` per
+/// step, until the parameter is `>= t` (or `> t` when `strict`): exact integer division.
+#[inline(always)]
+fn steps_until(at: i64, step: i64, t: i64, strict: bool) -> i64 {
+    let need = if strict { t.saturating_add(1) } else { t };
+    if at >= need || step >= NEVER {
+        return if at >= need { 0 } else { NEVER };
+    }
+    // Smallest k with at + k * step >= need.
+    (need - at + step - 1) / step
 }
 
 /// The cells of a `Cone` beam with their distance and bearing, metres and radians.
@@ -192,43 +303,15 @@ pub fn cone_cells(
     reach: f64,
 ) -> Vec<ConeCell> {
     let mut out = Vec::new();
-    let half = width / 2.0;
-    let own = spec.cell_at(origin);
-    let b = cone_bounds(origin, heading, width, reach);
-    let lo = spec.cell_at(b.min);
-    let hi = spec.cell_at(b.max);
-    let c0 = lo.col.max(0);
-    let r0 = lo.row.max(0);
-    let c1 = hi.col.min(spec.width as i64 - 1);
-    let r1 = hi.row.min(spec.height as i64 - 1);
-    for row in r0..=r1 {
-        for col in c0..=c1 {
-            let cell = CellIndex::new(col, row);
-            let centre = spec.centre(cell);
-            let (ex, ey) = (centre.x - origin.x, centre.y - origin.y);
-            let distance = (ex * ex + ey * ey).sqrt();
-            let bearing = if cell == own {
-                0.0
-            } else {
-                wrap_angle(ey.atan2(ex) - heading)
-            };
-            if cell == own || (distance <= reach && bearing.abs() <= half) {
-                out.push(ConeCell {
-                    cell,
-                    distance,
-                    bearing,
-                });
-            }
-        }
-    }
-    if spec.index(own).is_some() && !out.iter().any(|c| c.cell == own) {
-        let centre = spec.centre(own);
-        out.push(ConeCell {
-            cell: own,
-            distance: centre.distance(origin),
-            bearing: 0.0,
-        });
-    }
+    for_each_cone_cell(
+        spec,
+        origin,
+        heading,
+        width,
+        reach,
+        i64::MIN..i64::MAX,
+        |c| out.push(c),
+    );
     out.sort_by(|a, b| {
         a.distance
             .total_cmp(&b.distance)
@@ -236,6 +319,72 @@ pub fn cone_cells(
             .then(a.cell.col.cmp(&b.cell.col))
     });
     out
+}
+
+/// The cells of [`cone_cells`] whose row lies in `rows`, in no particular order (each once).
+pub fn for_each_cone_cell(
+    spec: &GridSpec,
+    origin: Point2,
+    heading: f64,
+    width: f64,
+    reach: f64,
+    rows: std::ops::Range<i64>,
+    mut visit: impl FnMut(ConeCell),
+) {
+    let half = width / 2.0;
+    let own = spec.cell_at(origin);
+    let b = cone_bounds(origin, heading, width, reach);
+    let lo = spec.cell_at(b.min);
+    let hi = spec.cell_at(b.max);
+    let c0 = lo.col.max(0);
+    let c1 = hi.col.min(spec.width as i64 - 1);
+    let r0 = lo.row.max(0).max(rows.start);
+    let r1 = hi.row.min(spec.height as i64 - 1).min(rows.end - 1);
+    // A cheap, slightly generous test before the exact one: the angle to the axis is at most
+    // half + 1e-6 when the projection on the axis is at least d * cos(half + 1e-6).
+    let (sin_h, cos_h) = heading.sin_cos();
+    let cos_limit = if half + 1e-6 < PI {
+        (half + 1e-6).cos()
+    } else {
+        -1.0
+    };
+    let mut own_seen = false;
+    for row in r0..=r1 {
+        for col in c0..=c1 {
+            let cell = CellIndex::new(col, row);
+            let centre = spec.centre(cell);
+            let (ex, ey) = (centre.x - origin.x, centre.y - origin.y);
+            let d2 = ex * ex + ey * ey;
+            if cell == own {
+                own_seen = true;
+                visit(ConeCell {
+                    cell,
+                    distance: d2.sqrt(),
+                    bearing: 0.0,
+                });
+                continue;
+            }
+            let distance = d2.sqrt();
+            if distance > reach || ex * cos_h + ey * sin_h < distance * cos_limit {
+                continue;
+            }
+            let bearing = wrap_angle(ey.atan2(ex) - heading);
+            if bearing.abs() <= half {
+                visit(ConeCell {
+                    cell,
+                    distance,
+                    bearing,
+                });
+            }
+        }
+    }
+    if !own_seen && spec.index(own).is_some() && rows.contains(&own.row) {
+        visit(ConeCell {
+            cell: own,
+            distance: spec.centre(own).distance(origin),
+            bearing: 0.0,
+        });
+    }
 }
 
 /// Angular weight of a cone cell: `max(0, 1 - (2 bearing / width)^2)`.
@@ -336,7 +485,11 @@ mod tests {
             for k in 1..6 {
                 let row = w.start.row + k * w.step_row;
                 let want = cells.iter().copied().find(|c| c.row == row);
-                assert_eq!(w.enter_row(row), want, "row {row}, walk {w:?}");
+                assert_eq!(
+                    w.enter_row(row).map(|(c, _)| c),
+                    want,
+                    "row {row}, walk {w:?}"
+                );
             }
         }
     }

@@ -7,6 +7,7 @@
 //! [`commands`] holds the batch commands of the command line. Only [`app`] knows about the
 //! window; nothing else imports egui.
 pub mod app;
+pub mod bench;
 pub mod commands;
 pub mod demo;
 pub mod error;
@@ -17,6 +18,7 @@ pub mod geometry;
 pub mod grid;
 pub mod logodds;
 pub mod model;
+pub mod packed;
 pub mod params;
 pub mod replay;
 pub mod score;

@@ -37,9 +37,13 @@ impl Default for Clamp {
 
 impl Clamp {
     /// Adds `increment` to `value` and clamps the sum, all in log-odds (f32, as the grid stores).
+    /// Written as two comparisons (values are never NaN), which compile to one min and one max
+    /// instruction; every fusion path uses this one function so they agree bit for bit.
     #[inline(always)]
     pub fn apply(lo: f32, hi: f32, value: f32, increment: f32) -> f32 {
-        (value + increment).clamp(lo, hi)
+        let s = value + increment;
+        let s = if s < lo { lo } else { s };
+        if s > hi { hi } else { s }
     }
 
     /// The bounds as f32, as the grid's update loop uses them.

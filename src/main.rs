@@ -122,6 +122,53 @@ enum Command {
         #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
         cell_budget: u64,
     },
+    /// Convert a session to the packed layout (NumPy arrays beside a RON header), or back.
+    Pack {
+        /// Session file (inline or packed), or `demo:NAME`.
+        session: PathBuf,
+        /// Header file to write (`X.session.ron`; arrays go beside it as `X.*.npy`).
+        #[arg(long)]
+        out: PathBuf,
+        /// Write an inline session instead (the way back).
+        #[arg(long)]
+        inline: bool,
+    },
+    /// Measure rebuild, seek and load speed on a generated building; prints key=value lines.
+    Bench {
+        /// Frames of the generated run.
+        #[arg(long, default_value_t = 2000)]
+        frames: usize,
+        /// Laser beams per frame (over 270 degrees).
+        #[arg(long, default_value_t = 1081)]
+        beams: usize,
+        /// Laser range, metres.
+        #[arg(long, default_value_t = 30.0)]
+        range: f64,
+        /// Cell side, metres.
+        #[arg(long, default_value_t = 0.05)]
+        resolution: f64,
+        /// Building width, metres.
+        #[arg(long, default_value_t = 96.0)]
+        width: f64,
+        /// Building height, metres.
+        #[arg(long, default_value_t = 72.0)]
+        height: f64,
+        /// Threads for the parallel rebuild (all cores by default).
+        #[arg(long)]
+        threads: Option<usize>,
+        /// Repetitions per timing; the median is printed.
+        #[arg(long, default_value_t = 5)]
+        reps: usize,
+        /// Random seeks timed.
+        #[arg(long, default_value_t = 50)]
+        seeks: usize,
+        /// Seed of the building's clutter and the range noise.
+        #[arg(long, default_value_t = 2026)]
+        seed: u64,
+        /// Also write the generated floor plan to this file.
+        #[arg(long, value_name = "FILE")]
+        write_plan: Option<PathBuf>,
+    },
     /// Simulate a floor plan's run into a session, plus the plan's reference map bundle.
     Simulate {
         /// Floor plan (`*.plan.ron`).
@@ -218,6 +265,41 @@ fn run(cli: Cli) -> Result<(), gridscope::Error> {
                 save_best,
                 cell_budget,
             },
+            &mut out,
+        ),
+        Some(Command::Pack {
+            session,
+            out: target,
+            inline,
+        }) => commands::pack(&session, &target, inline, &mut out),
+        Some(Command::Bench {
+            frames,
+            beams,
+            range,
+            resolution,
+            width,
+            height,
+            threads,
+            reps,
+            seeks,
+            seed,
+            write_plan,
+        }) => commands::bench(
+            &gridscope::bench::BenchOptions {
+                building: gridscope::sim::BuildingSpec {
+                    width,
+                    height,
+                    frames,
+                    beams,
+                    range,
+                    seed,
+                },
+                resolution,
+                threads,
+                reps,
+                seeks,
+            },
+            write_plan.as_deref(),
             &mut out,
         ),
         Some(Command::Open { file, params }) => open_window(file, params),

@@ -61,12 +61,13 @@ pub fn cone_probability(p_radial: f64, bearing: f64, width: f64) -> f64 {
     0.5 + cone_weight(bearing, width) * (p_radial - 0.5)
 }
 
-/// Piecewise-linear table of `f(x)` on `[lo, hi]` with evenly spaced nodes.
+/// Piecewise-linear table of `f(x)` on `[lo, hi]` with evenly spaced nodes: for interval i,
+/// the value at its start and the rise across it.
 #[derive(Clone, Debug)]
 struct Table {
     lo: f64,
     inv_step: f64,
-    nodes: Vec<f64>,
+    intervals: Vec<(f64, f64)>,
 }
 
 impl Table {
@@ -80,7 +81,7 @@ impl Table {
             let t = Table {
                 lo,
                 inv_step: if hi > lo { 1.0 / step } else { 0.0 },
-                nodes,
+                intervals: nodes.windows(2).map(|w| (w[0], w[1] - w[0])).collect(),
             };
             let worst = (0..n)
                 .flat_map(|i| [1.0 / 3.0, 0.5, 2.0 / 3.0].map(|u| lo + (i as f64 + u) * step))
@@ -96,12 +97,10 @@ impl Table {
     #[inline(always)]
     fn eval(&self, x: f64) -> f64 {
         let u = (x - self.lo) * self.inv_step;
-        let last = self.nodes.len() - 1;
-        let i = (u as usize).min(last.saturating_sub(1));
+        let i = (u as usize).min(self.intervals.len() - 1);
         let frac = u - i as f64;
-        let a = self.nodes[i];
-        let b = self.nodes[(i + 1).min(last)];
-        a + frac * (b - a)
+        let (a, rise) = self.intervals[i];
+        a + frac * rise
     }
 }
 
@@ -162,6 +161,15 @@ impl PreparedModel {
     /// logit(p_free), log-odds.
     pub fn free_increment(&self) -> f64 {
         self.l_free
+    }
+
+    /// For a hit at `z` metres: every cell whose centre is closer than this (metres from the
+    /// origin) gets exactly [`PreparedModel::free_increment`] from [`PreparedModel::hit_increment`].
+    pub fn free_below(&self, z: f64) -> f64 {
+        match self.spec {
+            ModelSpec::Gaussian { .. } => z + self.front,
+            ModelSpec::Band { thickness, .. } => z - thickness / 2.0,
+        }
     }
 
     /// How far a hit at `z` metres reaches, metres from the beam origin.
@@ -285,6 +293,8 @@ mod tests {
         assert!((m.hit_increment(3.0, z) - logit(0.7)).abs() < 1e-15);
         assert_eq!(m.hit_increment(3.2, z), 0.0);
         assert!((m.hit_reach(z) - 3.05).abs() < 1e-12);
+        assert_eq!(m.free_below(z), 2.95);
+        assert_eq!(m.hit_increment(2.9499, z), m.free_increment());
     }
 
     #[test]
@@ -327,6 +337,12 @@ mod tests {
                 worst = worst.max(err);
             }
             assert!(worst <= 1e-4, "{spec:?}: worst error {worst}");
+            // In front of free_below the table gives exactly logit(p_free).
+            let edge = m.free_below(z);
+            for k in 1..100 {
+                let d = edge - k as f64 * 1e-3;
+                assert_eq!(m.hit_increment(d, z), m.free_increment(), "{spec:?} at {d}");
+            }
         }
     }
 

@@ -326,7 +326,10 @@ struct SessionFile {
     #[serde(default)]
     notes: String,
     sensors: Vec<Sensor>,
-    frames: Vec<FrameFile>,
+    #[serde(default)]
+    frames: Option<Vec<FrameFile>>,
+    #[serde(default)]
+    frames_from: Option<crate::packed::PackedFrames>,
 }
 
 #[derive(Deserialize)]
@@ -356,7 +359,16 @@ pub(crate) fn parse_versioned<T: for<'de> Deserialize<'de>>(
     text: &str,
     file: &str,
 ) -> Result<T, InputError> {
-    match ron::from_str::<T>(text) {
+    parse_versioned_with(text, file, &ron::Options::default())
+}
+
+/// As [`parse_versioned`] with RON options (sessions accept optional fields without `Some`).
+pub(crate) fn parse_versioned_with<T: for<'de> Deserialize<'de>>(
+    text: &str,
+    file: &str,
+    options: &ron::Options,
+) -> Result<T, InputError> {
+    match options.from_str::<T>(text) {
         Ok(v) => Ok(v),
         Err(e) => {
             if let Ok(probe) = ron::from_str::<FormatProbe>(text)
@@ -386,16 +398,62 @@ impl Session {
     /// Loads and validates a session file.
     pub fn load(path: &Path) -> Result<Session, InputError> {
         let text = read_text(path)?;
-        Self::from_ron_str(&text, &path.display().to_string())
+        let base = path.parent().unwrap_or(Path::new("."));
+        Self::parse(&text, &path.display().to_string(), Some(base))
     }
 
-    /// Parses and validates a session from RON text; `file` names it in errors.
+    /// Parses and validates an inline session from RON text; `file` names it in errors.
+    /// (A packed session needs its folder: use [`Session::load`].)
     pub fn from_ron_str(text: &str, file: &str) -> Result<Session, InputError> {
-        let doc: SessionFile = parse_versioned(text, file)?;
+        Self::parse(text, file, None)
+    }
+
+    fn parse(text: &str, file: &str, base: Option<&Path>) -> Result<Session, InputError> {
+        // `frames` and `frames_from` are written bare, as the contract shows them.
+        let options = ron::Options::default()
+            .with_default_extension(ron::extensions::Extensions::IMPLICIT_SOME);
+        let doc: SessionFile = parse_versioned_with(text, file, &options)?;
         check_format(doc.format, file)?;
         let mut session = Session::with_sensors(doc.name, doc.notes, doc.sensors)
             .map_err(|p| InputError::new(file, p))?;
-        for f in doc.frames {
+        let frames = match (doc.frames, doc.frames_from) {
+            (Some(frames), None) => frames,
+            (None, Some(packed)) => {
+                let Some(base) = base else {
+                    return Err(InputError::new(
+                        file,
+                        Problem::BadField {
+                            field: "frames_from".into(),
+                            reason:
+                                "a packed session must be opened from its file, beside its arrays"
+                                    .into(),
+                        },
+                    ));
+                };
+                return crate::packed::load_frames(session, &packed, base, file);
+            }
+            (Some(_), Some(_)) => {
+                return Err(InputError::new(
+                    file,
+                    Problem::BadField {
+                        field: "frames".into(),
+                        reason: "give either frames or frames_from, not both".into(),
+                    },
+                ));
+            }
+            (None, None) => {
+                return Err(InputError::new(
+                    file,
+                    Problem::BadField {
+                        field: "frames".into(),
+                        reason:
+                            "missing: give frames (inline) or frames_from (arrays beside the file)"
+                                .into(),
+                    },
+                ));
+            }
+        };
+        for f in frames {
             let scans: Vec<(&str, &[f32])> = f
                 .scans
                 .iter()
@@ -497,6 +555,12 @@ impl Session {
         Ok(())
     }
 
+    /// Replaces the range storage of every sensor (packed sessions keep their readings in
+    /// arrays beside the header); the frames must point at rows of these tables.
+    pub(crate) fn set_tables(&mut self, tables: Vec<RangeTable>) {
+        self.tables = tables;
+    }
+
     /// Index of the sensor with this id.
     pub fn sensor_index(&self, id: &str) -> Option<usize> {
         self.sensors.iter().position(|s| s.id == id)
@@ -575,8 +639,8 @@ impl Session {
         st
     }
 
-    /// Writes the session as an inline `*.session.ron` document (format 1), one frame per line.
-    pub fn to_ron_string(&self) -> String {
+    /// The header of a session document: format, name, notes and sensors, up to the frames.
+    fn sensors_ron(&self) -> String {
         use std::fmt::Write;
         let mut s = String::new();
         let _ = writeln!(
@@ -614,7 +678,32 @@ impl Session {
                 fmt_f64(sensor.cone_width),
             );
         }
-        s.push_str("    ],\n    frames: [\n");
+        s.push_str("    ],\n");
+        s
+    }
+
+    /// A packed session header: the sensors, and `frames_from` pointing at the arrays.
+    pub(crate) fn header_ron(&self, frames_from: &crate::packed::PackedFrames) -> String {
+        let mut s = self.sensors_ron();
+        let ranges: Vec<String> = frames_from
+            .ranges
+            .iter()
+            .map(|(id, f)| format!("{}: {}", ron_string(id), ron_string(f)))
+            .collect();
+        s.push_str(&format!(
+            "    frames_from: (\n        times: {},\n        poses: {},\n        ranges: {{ {} }},\n    ),\n)\n",
+            ron_string(&frames_from.times),
+            ron_string(&frames_from.poses),
+            ranges.join(", ")
+        ));
+        s
+    }
+
+    /// Writes the session as an inline `*.session.ron` document (format 1), one frame per line.
+    pub fn to_ron_string(&self) -> String {
+        use std::fmt::Write;
+        let mut s = self.sensors_ron();
+        s.push_str("    frames: [\n");
         for f in &self.frames {
             let _ = write!(
                 s,

@@ -209,15 +209,13 @@ fn run(jobs: Receiver<Job>, replies: Sender<Reply>, repaint: Arc<Mutex<Option<eg
             } else {
                 None
             };
-            if done % 16 == 0 || partial.is_some() {
-                let _ = replies.send(Reply::Progress {
-                    generation,
-                    done,
-                    total,
-                    partial,
-                });
-                wake();
-            }
+            let _ = replies.send(Reply::Progress {
+                generation,
+                done,
+                total,
+                partial,
+            });
+            wake();
         });
         // The only failure of a replay is cancellation by a newer job, which is already queued.
         if let Ok((before, after)) = result {

@@ -7,9 +7,11 @@
 //! noise, invalid readings and missed returns are drawn from a seeded generator, so the same
 //! plan always gives the same session.
 
+mod building;
 mod plan;
 mod rng;
 
+pub use building::{BuildingSpec, building_plan};
 pub use plan::{FloorPlan, Material, Noise, Route, SimSensor, Wall, Window};
 pub use rng::Rng;
 
@@ -38,20 +40,62 @@ pub fn ray_segment(origin: Point2, dir: (f64, f64), a: Point2, b: Point2) -> Opt
     (t > 1e-9 && (0.0..=1.0).contains(&u)).then_some(t)
 }
 
-/// The walls at one instant, ready for ray casting.
+/// The walls at one instant, ready for ray casting: each wall is filed in the buckets of a
+/// coarse grid that it crosses, and a ray visits buckets in order (exact traversal again), so
+/// a cast tests only the walls near its path.
 struct Scene<'a> {
     walls: Vec<&'a Wall>,
+    buckets: GridSpec,
+    filed: Vec<Vec<u32>>,
 }
 
 impl<'a> Scene<'a> {
     fn at(plan: &'a FloorPlan, t: f64) -> Self {
+        let walls: Vec<&Wall> = plan.walls.iter().filter(|w| w.exists_at(t)).collect();
+        let mut bounds = WorldBox::at(plan.route.waypoints[0]);
+        for p in walls
+            .iter()
+            .flat_map(|w| [w.a, w.b])
+            .chain(plan.route.waypoints.iter().copied())
+        {
+            bounds.include(p);
+        }
+        let span = (bounds.max.x - bounds.min.x).max(bounds.max.y - bounds.min.y);
+        let size = (span / 48.0).max(1.0);
+        let buckets = GridSpec::covering(&bounds, size, 1, u64::MAX).expect("a finite plan");
+        let mut filed = vec![Vec::new(); buckets.cells()];
+        for (i, w) in walls.iter().enumerate() {
+            let len = w.a.distance(w.b);
+            let (ux, uy) = ((w.b.x - w.a.x) / len, (w.b.y - w.a.y) / len);
+            // The wall and two copies a hair to either side, so a wall lying on a bucket
+            // boundary is filed on both sides of it.
+            for side in [0.0, 1e-7, -1e-7] {
+                let a = Point2::new(w.a.x - uy * side, w.a.y + ux * side);
+                RayWalk::from_direction(&buckets, a, ux, uy, len).for_each(|c| {
+                    if let Some(k) = buckets.index(c) {
+                        let list: &mut Vec<u32> = &mut filed[k];
+                        if list.last() != Some(&(i as u32)) {
+                            list.push(i as u32);
+                        }
+                    }
+                    true
+                });
+            }
+        }
+        for list in &mut filed {
+            list.sort_unstable();
+            list.dedup();
+        }
         Scene {
-            walls: plan.walls.iter().filter(|w| w.exists_at(t)).collect(),
+            walls,
+            buckets,
+            filed,
         }
     }
 
     /// Nearest distance along the ray to a wall; glass is passed with its probability when
-    /// `narrow`. `None` if nothing is hit within `max` metres.
+    /// `narrow`. `None` if nothing is hit within `max` metres. Walls are met in order of
+    /// distance, each once.
     fn cast(
         &self,
         origin: Point2,
@@ -61,24 +105,43 @@ impl<'a> Scene<'a> {
         rng: &mut Rng,
     ) -> Option<f64> {
         let dir = (heading.cos(), heading.sin());
-        let mut hits: Vec<(f64, Material)> = self
-            .walls
-            .iter()
-            .filter_map(|w| ray_segment(origin, dir, w.a, w.b).map(|t| (t, w.material)))
-            .filter(|(t, _)| *t < max)
-            .collect();
-        hits.sort_by(|a, b| a.0.total_cmp(&b.0));
-        for (t, m) in hits {
-            match m {
-                Material::Solid => return Some(t),
-                Material::Glass { pass } => {
-                    if !narrow || rng.uniform() >= pass {
-                        return Some(t);
-                    }
+        let walk = RayWalk::from_direction(&self.buckets, origin, dir.0, dir.1, max);
+        let mut hits: Vec<(f64, Material)> = Vec::new();
+        let mut found = None;
+        let mut t_enter = 0.0f64;
+        walk.for_each(|c| {
+            let t_exit =
+                crate::footprint::metres(walk.leave_col(c.col).min(walk.leave_row(c.row))).min(max);
+            let Some(k) = self.buckets.index(c) else {
+                t_enter = t_exit;
+                return true;
+            };
+            hits.clear();
+            for &i in &self.filed[k] {
+                let w = self.walls[i as usize];
+                if let Some(t) = ray_segment(origin, dir, w.a, w.b)
+                    && t < max
+                    && t >= t_enter
+                    && (t < t_exit || t_exit >= max)
+                {
+                    hits.push((t, w.material));
                 }
             }
-        }
-        None
+            hits.sort_by(|a, b| a.0.total_cmp(&b.0));
+            for &(t, m) in &hits {
+                let stops = match m {
+                    Material::Solid => true,
+                    Material::Glass { pass } => !narrow || rng.uniform() >= pass,
+                };
+                if stops {
+                    found = Some(t);
+                    return false;
+                }
+            }
+            t_enter = t_exit;
+            true
+        });
+        found
     }
 }
 
@@ -167,8 +230,14 @@ pub fn simulate(plan: &FloorPlan) -> Session {
         .iter()
         .map(|s| Vec::with_capacity(s.sensor.beam_count()))
         .collect();
+    // The scene is rebuilt only when a timed wall appears or disappears.
+    let mut scene: Option<(Vec<bool>, Scene)> = None;
     for (t, pose) in route_poses(&plan.route) {
-        let scene = Scene::at(plan, t);
+        let present: Vec<bool> = plan.walls.iter().map(|w| w.exists_at(t)).collect();
+        if scene.as_ref().is_none_or(|(p, _)| *p != present) {
+            scene = Some((present, Scene::at(plan, t)));
+        }
+        let scene = &scene.as_ref().expect("just built").1;
         for (sim, buf) in plan.sensors.iter().zip(buffers.iter_mut()) {
             buf.clear();
             let s = &sim.sensor;

@@ -36,7 +36,7 @@ fn random_model(r: &mut TestRng) -> ModelSpec {
     }
 }
 
-fn random_session(r: &mut TestRng) -> Session {
+pub fn random_session(r: &mut TestRng) -> Session {
     let mut sensors = vec![Sensor {
         id: "laser".into(),
         kind: SensorKind::Ray,
@@ -101,7 +101,7 @@ fn random_session(r: &mut TestRng) -> Session {
     s
 }
 
-fn random_params(r: &mut TestRng) -> Params {
+pub fn random_params(r: &mut TestRng) -> Params {
     let mut models = std::collections::BTreeMap::new();
     if r.unit() < 0.6 {
         models.insert("sonar".to_string(), random_model(r));

@@ -3,6 +3,7 @@
 mod cli;
 mod diagnosis;
 mod independent;
+mod parallel;
 mod samples;
 mod traversal;
 mod window;

@@ -108,7 +108,7 @@ fn starting_mid_segment_at_a_row_reproduces_the_walk() {
         let last_row = cells.last().unwrap().row;
         let mut row = w.start.row + w.step_row;
         while row != last_row + w.step_row {
-            let entry = w.enter_row(row).expect("row lies on the segment");
+            let (entry, _) = w.enter_row(row).expect("row lies on the segment");
             let k = cells.iter().position(|c| c.row == row).unwrap();
             assert_eq!(entry, cells[k]);
             let mut rest = Vec::new();

@@ -8,11 +8,13 @@
 //! answered by the same per-beam footprint function the full rebuild uses, never by a second
 //! implementation of the rule.
 
+mod bands;
+
 use crate::error::Error;
 use crate::footprint::{RayWalk, cone_bounds, cone_cells, ray_bounds};
 use crate::geometry::Point2;
 use crate::grid::{CellIndex, DEFAULT_CELL_BUDGET, Grid, GridSpec, WorldBox};
-use crate::logodds::logit;
+use crate::logodds::{Clamp, logit};
 use crate::model::PreparedModel;
 use crate::params::{FusionRule, NoReturnRule, Params};
 use crate::session::{BeamRef, Reading, SensorKind, Session};
@@ -271,15 +273,59 @@ impl MapBuilder {
     ) -> Result<(), Error> {
         assert_eq!(grid.spec(), &self.spec, "grid from another builder");
         let end = frames.end.min(self.session.frames.len());
-        let mut scratch = CellMap::default();
-        for (done, f) in (frames.start..end).enumerate() {
-            if cancel.load(Ordering::Relaxed) {
-                return Err(Error::Cancelled);
-            }
-            self.apply_frame(grid.values_mut(), f, &mut scratch);
-            progress(done + 1);
+        let start = frames.start.min(end);
+        if cancel.load(Ordering::Relaxed) {
+            return Err(Error::Cancelled);
         }
-        Ok(())
+        let parallel = rayon::current_num_threads() > 1;
+        let mut stopped = false;
+        self.integrate_bands(grid.values_mut(), start..end, parallel, &mut |done| {
+            progress(done);
+            stopped = cancel.load(Ordering::Relaxed);
+            !stopped
+        });
+        if stopped {
+            Err(Error::Cancelled)
+        } else {
+            Ok(())
+        }
+    }
+
+    /// Number of cell updates that integrating `frames` applies (under OncePerCell: distinct
+    /// cells per frame). Counted in parallel over frames.
+    pub fn update_count(&self, frames: Range<usize>) -> u64 {
+        use rayon::prelude::*;
+        let end = frames.end.min(self.session.frames.len());
+        (frames.start.min(end)..end)
+            .into_par_iter()
+            .filter(|&f| !self.params.exclude.frame_excluded(f))
+            .map(|f| match self.params.fusion {
+                FusionRule::EveryBeam => {
+                    let mut n = 0u64;
+                    self.for_each_beam_touch(f, |_, _, _, _| n += 1);
+                    n
+                }
+                FusionRule::OncePerCell => {
+                    let mut cells = HashSet::new();
+                    self.for_each_beam_touch(f, |_, _, idx, _| {
+                        cells.insert(idx);
+                    });
+                    cells.len() as u64
+                }
+            })
+            .sum()
+    }
+
+    /// Integrates frames with the plain loop: one beam at a time, one cell at a time, through
+    /// the same footprint function the inspection tools use. It is the reference the fast
+    /// rebuild ([`MapBuilder::integrate`]) is tested against, bit for bit.
+    pub fn integrate_plain(&self, grid: &mut Grid, frames: Range<usize>) {
+        assert_eq!(grid.spec(), &self.spec, "grid from another builder");
+        let end = frames.end.min(self.session.frames.len());
+        let mut scratch = CellMap::default();
+        for f in frames.start.min(end)..end {
+            self.apply_frame(grid.values_mut(), f, &mut scratch);
+        }
     }
 
     fn apply_frame(&self, values: &mut [f32], f: usize, scratch: &mut CellMap<Strongest>) {
@@ -291,7 +337,7 @@ impl MapBuilder {
             FusionRule::EveryBeam => {
                 self.for_each_beam_touch(f, |_, _, idx, inc| {
                     let v = &mut values[idx];
-                    *v = (*v + inc).clamp(lo, hi);
+                    *v = Clamp::apply(lo, hi, *v, inc);
                 });
             }
             FusionRule::OncePerCell => {
@@ -304,7 +350,7 @@ impl MapBuilder {
                 });
                 for (&idx, s) in scratch.iter() {
                     let v = &mut values[idx];
-                    *v = (*v + s.chosen().0).clamp(lo, hi);
+                    *v = Clamp::apply(lo, hi, *v, s.chosen().0);
                 }
             }
         }
@@ -460,7 +506,7 @@ impl MapBuilder {
                             reached = true;
                         }
                         if !reached && let Some(v) = values.get_mut(&idx) {
-                            *v = (*v + inc).clamp(lo, hi);
+                            *v = Clamp::apply(lo, hi, *v, inc);
                         }
                     });
                 }

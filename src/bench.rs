@@ -1,0 +1,257 @@
+//! `gridscope bench`: speed on this machine, measured in one process so that ratios are fair.
+//!
+//! A deterministic run through a large generated building is simulated in memory, then timed:
+//! a plain streaming read-modify-write over a grid of the same size (the memory floor), the
+//! full rebuild on one thread and on all threads (and whether the two grids are identical bit
+//! for bit), seeks of the window's replay engine to random frames, and loading the session's
+//! ranges from the packed (NumPy) layout against parsing them from RON. Each timing is the
+//! median of several repetitions. Speed targets belong here, never in tests.
+
+use crate::error::Error;
+use crate::fusion::MapBuilder;
+use crate::params::Params;
+use crate::replay::{DEFAULT_SNAPSHOT_BUDGET, Replay};
+use crate::session::Session;
+use crate::sim::{BuildingSpec, building_plan, simulate};
+use std::hint::black_box;
+use std::sync::Arc;
+use std::sync::atomic::AtomicBool;
+use std::time::Instant;
+
+/// What to measure.
+#[derive(Clone, Debug, PartialEq)]
+pub struct BenchOptions {
+    /// The generated building and run.
+    pub building: BuildingSpec,
+    /// Cell side, metres.
+    pub resolution: f64,
+    /// Threads for the parallel rebuild (all cores when `None`).
+    pub threads: Option<usize>,
+    /// Repetitions per timing (the median is reported).
+    pub reps: usize,
+    /// Random seeks timed.
+    pub seeks: usize,
+}
+
+impl Default for BenchOptions {
+    fn default() -> Self {
+        BenchOptions {
+            building: BuildingSpec::default(),
+            resolution: 0.05,
+            threads: None,
+            reps: 5,
+            seeks: 50,
+        }
+    }
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    if n == 0 {
+        f64::NAN
+    } else if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        (v[n / 2 - 1] + v[n / 2]) / 2.0
+    }
+}
+
+/// Seconds taken by `f`, median over `reps` runs.
+fn time(reps: usize, mut f: impl FnMut()) -> f64 {
+    median(
+        (0..reps.max(1))
+            .map(|_| {
+                let t = Instant::now();
+                f();
+                t.elapsed().as_secs_f64()
+            })
+            .collect(),
+    )
+}
+
+/// Peak resident memory of this process, MB (Linux; `NaN` elsewhere).
+pub fn peak_rss_mb() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines()
+                .find_map(|l| l.strip_prefix("VmHWM:"))
+                .and_then(|v| v.trim().trim_end_matches("kB").trim().parse::<f64>().ok())
+        })
+        .map_or(f64::NAN, |kb| kb / 1024.0)
+}
+
+/// Runs the benchmark; `say` gets progress lines (for stderr). Returns `key=value` pairs in
+/// the documented order.
+pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String, String)>, Error> {
+    let mut out: Vec<(String, String)> = Vec::new();
+    let mut put = |k: &str, v: String| out.push((k.to_string(), v));
+
+    say("simulating the run");
+    let t = Instant::now();
+    let plan = building_plan(&opts.building);
+    let session = Arc::new(simulate(&plan));
+    let sim_s = t.elapsed().as_secs_f64();
+    let params = Params {
+        resolution: opts.resolution,
+        ..Params::default()
+    };
+    let builder = Arc::new(MapBuilder::new(session.clone(), params)?);
+    let n = session.frames.len();
+    let spec = *builder.spec();
+    say(&format!(
+        "{} frames x {} beams, grid {} x {} cells; counting updates",
+        n,
+        session.sensors[0].beam_count(),
+        spec.width,
+        spec.height
+    ));
+    let cells_touched = builder.update_count(0..n);
+
+    let threads = opts
+        .threads
+        .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()));
+    let one = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .map_err(|e| Error::Window(e.to_string()))?;
+    let all = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| Error::Window(e.to_string()))?;
+
+    say("memory floor");
+    let mut grid = builder.blank();
+    let floor_s = time(opts.reps, || {
+        for v in grid.values_mut().iter_mut() {
+            *v = (*v + 0.1).min(3.5);
+        }
+        black_box(grid.values());
+    });
+    let floor = spec.cells() as f64 / floor_s;
+
+    say("rebuild on one thread");
+    let mut seq_grid = builder.blank();
+    let seq_s = time(opts.reps, || seq_grid = one.install(|| builder.build(n)));
+    say("rebuild on all threads");
+    let mut par_grid = builder.blank();
+    let par_s = time(opts.reps, || par_grid = all.install(|| builder.build(n)));
+    let identical = seq_grid
+        .values()
+        .iter()
+        .zip(par_grid.values())
+        .all(|(a, b)| a.to_bits() == b.to_bits());
+
+    say("seeking");
+    let mut replay = Replay::new(builder.clone(), DEFAULT_SNAPSHOT_BUDGET);
+    let never = AtomicBool::new(false);
+    all.install(|| replay.state_before(n, &never, &mut |_, _, _| {}))?;
+    let mut rng = crate::sim::Rng::new(opts.building.seed ^ 0xBE4C);
+    let mut seeks = Vec::with_capacity(opts.seeks);
+    for _ in 0..opts.seeks {
+        let target = (rng.uniform() * n as f64) as usize;
+        let t = Instant::now();
+        let g = all.install(|| replay.around(target, &never, &mut |_, _, _| {}))?;
+        black_box(&g);
+        seeks.push(t.elapsed().as_secs_f64() * 1e3);
+    }
+    let seek_max = seeks.iter().copied().fold(0.0, f64::max);
+    let seek_median = median(seeks);
+
+    say("loading ranges");
+    let (load_rate, ron_rate) = load_rates(&session, opts.reps)?;
+
+    put("cells_touched", cells_touched.to_string());
+    put("floor_updates_per_s", format!("{floor:.4e}"));
+    put(
+        "seq_updates_per_s",
+        format!("{:.4e}", cells_touched as f64 / seq_s),
+    );
+    put(
+        "par_updates_per_s",
+        format!("{:.4e}", cells_touched as f64 / par_s),
+    );
+    put("threads", threads.to_string());
+    put("speedup", format!("{:.3}", seq_s / par_s));
+    put(
+        "floor_ratio",
+        format!("{:.3}", cells_touched as f64 / seq_s / floor),
+    );
+    put("bit_identical", identical.to_string());
+    put("seek_ms_median", format!("{seek_median:.2}"));
+    put("seek_ms_max", format!("{seek_max:.2}"));
+    put("load_numbers_per_s", format!("{load_rate:.4e}"));
+    put("peak_rss_mb", format!("{:.1}", peak_rss_mb()));
+    // Context for the figures above.
+    put("frames", n.to_string());
+    put(
+        "beams_per_frame",
+        session.sensors[0].beam_count().to_string(),
+    );
+    put("grid_cells", spec.cells().to_string());
+    put("seq_rebuild_s", format!("{seq_s:.3}"));
+    put("par_rebuild_s", format!("{par_s:.3}"));
+    put("snapshot_interval", replay.interval().to_string());
+    put("ron_numbers_per_s", format!("{ron_rate:.4e}"));
+    put(
+        "load_speedup_vs_ron",
+        format!("{:.0}", load_rate / ron_rate),
+    );
+    put("simulate_s", format!("{sim_s:.2}"));
+    Ok(out)
+}
+
+/// Numbers per second: reading every range of the session from the packed layout (open,
+/// validate, touch each number), and parsing a slice of the session from inline RON.
+fn load_rates(session: &Session, reps: usize) -> Result<(f64, f64), Error> {
+    let dir = std::env::temp_dir().join(format!("gridscope-bench-{}", std::process::id()));
+    std::fs::create_dir_all(&dir).map_err(|source| Error::Write {
+        file: dir.clone(),
+        source,
+    })?;
+    let header = dir.join("bench.session.ron");
+    crate::packed::write_packed(session, &header)?;
+    let total: usize = session.stats().beams as usize;
+    let load_s = time(reps, || {
+        let s = Session::load(&header).expect("the packed session just written loads");
+        let mut sum = 0.0f64;
+        for f in &s.frames {
+            for sc in &f.scans {
+                sum += s.ranges(*sc).iter().map(|&r| r as f64).sum::<f64>();
+            }
+        }
+        black_box(sum);
+    });
+    // RON: parse the first frames of the same session (enough for a stable rate).
+    let mut slice =
+        Session::with_sensors(session.name.clone(), String::new(), session.sensors.clone())
+            .expect("sensors were valid");
+    let mut numbers = 0usize;
+    for f in session.frames.iter().take(200) {
+        let owned: Vec<(String, Vec<f32>)> = f
+            .scans
+            .iter()
+            .map(|sc| {
+                (
+                    session.sensors[sc.sensor].id.clone(),
+                    session.ranges(*sc).to_vec(),
+                )
+            })
+            .collect();
+        numbers += owned.iter().map(|(_, v)| v.len()).sum::<usize>();
+        let scans: Vec<(&str, &[f32])> = owned
+            .iter()
+            .map(|(id, v)| (id.as_str(), v.as_slice()))
+            .collect();
+        slice
+            .push_frame(f.t, f.pose, &scans)
+            .expect("frames were valid");
+    }
+    let text = slice.to_ron_string();
+    let ron_s = time(reps.min(3), || {
+        black_box(Session::from_ron_str(&text, "bench").expect("valid"));
+    });
+    let _ = std::fs::remove_dir_all(&dir);
+    Ok((total as f64 / load_s, numbers as f64 / ron_s))
+}

@@ -1,0 +1,695 @@
+//! The fast rebuild: the same rule as the plain loop, bit for bit, split across threads.
+//!
+//! Clamping makes the order of a cell's updates matter, so threads cannot share cells. The
+//! grid is cut into square tiles; each tile takes every beam of a chunk of frames that can
+//! reach it, in the contract's order, and writes only its own cells, so every cell still sees
+//! its updates in order whichever thread runs the tile. A beam's walk enters a tile part-way
+//! along its segment (at a row with [`RayWalk::enter_row`], at a column by the same
+//! comparison the walk makes), which reproduces the sequential walk exactly because crossing
+//! parameters are computed from cell indices. Tiles rather than row bands, because a robot in
+//! a corridor puts most of a chunk's work into a few rows.
+//!
+//! Three things make the inner loop cheap without changing a single bit of the result:
+//! - a beam touches each cell once, so within a beam the order of its cells does not matter;
+//!   beams that run mostly along one axis are applied as stretches of consecutive cells in a
+//!   row (or column), found with one comparison per row rather than one per cell;
+//! - most cells of a hit beam lie well in front of the reading, where every model gives exactly
+//!   logit(p_free). A cell entered at parameter t has its centre within res * sqrt(2)/2 of the
+//!   entry point, so while t + res * 0.70711 is below the model's free zone the increment is that
+//!   constant and neither the distance to the centre nor the table is needed;
+//! - beams are prepared once per chunk (origin, direction, traversal constants, the cells they
+//!   can reach) and shared by all tiles.
+
+use super::{CellMap, MapBuilder, SensorPlan, Strongest, beam_reach};
+use crate::footprint::{RayWalk, for_each_cone_cell, param};
+use crate::geometry::Point2;
+use crate::grid::CellIndex;
+use crate::logodds::Clamp;
+use crate::params::FusionRule;
+use crate::session::{BeamRef, Reading, SensorKind};
+use rayon::prelude::*;
+use std::ops::Range;
+
+/// Slightly more than sqrt(2)/2 (by 3e-6): how far a cell's centre can be from a point inside
+/// the cell, in cells, with room for rounding.
+const CENTRE_REACH: f64 = std::f64::consts::FRAC_1_SQRT_2 + 3e-6;
+
+/// Beams crossing at least this many columns per row (or rows per column) are applied in
+/// stretches; closer to the diagonal they are walked cell by cell.
+const RUN_RATIO: f64 = 3.0;
+
+/// Side of a tile, cells, when running in parallel.
+const TILE: i64 = 128;
+
+/// Beams prepared per chunk (bounds memory; a chunk is shared by all tiles).
+const CHUNK_BEAMS: usize = 1 << 16;
+
+/// One beam, ready for the inner loop.
+#[derive(Clone, Copy, Debug)]
+enum Job {
+    Ray {
+        sensor: u32,
+        walk: RayWalk,
+        /// Offsets giving the vector from the origin to cell (c, r)'s centre: c * res + ex0.
+        ex0: f64,
+        ey0: f64,
+        /// The reading, metres (a no-return is cleared as free all the way).
+        z: f64,
+        hit: bool,
+        /// Cells entered before this fixed-point parameter get exactly logit(p_free).
+        free_until: i64,
+        /// Cells the beam can reach: (min, max) corners, inclusive.
+        reach: (CellIndex, CellIndex),
+    },
+    Cone {
+        sensor: u32,
+        origin: Point2,
+        heading: f64,
+        reach_m: f64,
+        reading: Reading,
+        reach: (CellIndex, CellIndex),
+    },
+}
+
+impl Job {
+    fn reach(&self) -> (CellIndex, CellIndex) {
+        match self {
+            Job::Ray { reach, .. } | Job::Cone { reach, .. } => *reach,
+        }
+    }
+}
+
+/// A rectangle of cells: rows `r0..r1`, columns `c0..c1`.
+#[derive(Clone, Copy, Debug)]
+struct Tile {
+    r0: i64,
+    r1: i64,
+    c0: i64,
+    c1: i64,
+}
+
+/// The grid's values, written by tiles that never share a cell.
+#[derive(Clone, Copy)]
+struct Cells(*mut f32);
+
+// SAFETY: `Cells` is only dereferenced at indices of cells inside the tile a task owns, and
+// each tile of a chunk is owned by exactly one task (see `integrate_bands`).
+unsafe impl Send for Cells {}
+unsafe impl Sync for Cells {}
+
+impl MapBuilder {
+    /// Prepares the jobs of frames `frames` (exclusions applied) into `jobs`, and the end of
+    /// each frame's jobs into `ends` (both cleared first, their memory reused).
+    fn prepare(&self, frames: Range<usize>, jobs: &mut Vec<Job>, ends: &mut Vec<usize>) {
+        let per_frame: Vec<Vec<Job>> = frames.into_par_iter().map(|f| self.frame_jobs(f)).collect();
+        jobs.clear();
+        ends.clear();
+        for fj in per_frame {
+            jobs.extend(fj);
+            ends.push(jobs.len());
+        }
+    }
+
+    fn frame_jobs(&self, f: usize) -> Vec<Job> {
+        let mut out = Vec::new();
+        if self.params.exclude.frame_excluded(f) {
+            return out;
+        }
+        let spec = &self.spec;
+        let res = spec.resolution;
+        let frame = &self.session.frames[f];
+        let widen = |a: CellIndex, b: CellIndex| {
+            // One cell of slack for end points on cell boundaries.
+            (
+                CellIndex::new(a.col.min(b.col) - 1, a.row.min(b.row) - 1),
+                CellIndex::new(a.col.max(b.col) + 1, a.row.max(b.row) + 1),
+            )
+        };
+        for scan in &frame.scans {
+            let plan = &self.plans[scan.sensor];
+            if plan.excluded {
+                continue;
+            }
+            let sensor = &self.session.sensors[scan.sensor];
+            let pose = frame.pose.compose(&sensor.mount);
+            let origin = pose.position();
+            for (beam, &raw) in self.session.ranges(*scan).iter().enumerate() {
+                if !self.excluded_beams.is_empty()
+                    && self.excluded_beams.contains(&BeamRef {
+                        frame: f,
+                        sensor: scan.sensor,
+                        beam,
+                    })
+                {
+                    continue;
+                }
+                let reading = sensor.classify(raw);
+                let Some(reach) = beam_reach(plan, reading, self.params.no_return) else {
+                    continue;
+                };
+                let heading = pose.theta + sensor.angles.angle(beam);
+                let s = scan.sensor as u32;
+                match plan.kind {
+                    SensorKind::Ray => {
+                        let walk = RayWalk::new(spec, origin, heading, reach);
+                        let end = walk.end(origin);
+                        let (z, hit, free_until) = match reading {
+                            // Rounding to fixed point moves this by 1e-12 m, far inside the
+                            // margin of CENTRE_REACH over sqrt(2)/2 (1.6e-7 m at 5 cm cells).
+                            Reading::Hit(z) => (
+                                z,
+                                true,
+                                param(plan.model.free_below(z) - res * CENTRE_REACH),
+                            ),
+                            _ => (0.0, false, i64::MAX),
+                        };
+                        out.push(Job::Ray {
+                            sensor: s,
+                            walk,
+                            ex0: spec.origin.x + 0.5 * res - origin.x,
+                            ey0: spec.origin.y + 0.5 * res - origin.y,
+                            z,
+                            hit,
+                            free_until,
+                            reach: widen(walk.start, spec.cell_at(end)),
+                        });
+                    }
+                    SensorKind::Cone => {
+                        let b =
+                            crate::footprint::cone_bounds(origin, heading, plan.cone_width, reach);
+                        out.push(Job::Cone {
+                            sensor: s,
+                            origin,
+                            heading,
+                            reach_m: reach,
+                            reading,
+                            reach: widen(spec.cell_at(b.min), spec.cell_at(b.max)),
+                        });
+                    }
+                }
+            }
+        }
+        out
+    }
+
+    /// Sends every cell of a ray job inside `tile` to `sink` (by grid index): as stretches of
+    /// cells in one row (or one column) that the walk visits one after another, or cell by cell
+    /// near the diagonal. Each cell of the walk inside the tile is sent exactly once.
+    #[inline(always)]
+    #[allow(clippy::too_many_arguments)]
+    fn ray_in_tile(
+        &self,
+        plan: &SensorPlan,
+        walk: &RayWalk,
+        ex0: f64,
+        ey0: f64,
+        z: f64,
+        hit: bool,
+        free_until: i64,
+        tile: Tile,
+        sink: &mut impl Sink,
+    ) {
+        let Tile { r0, r1, c0, c1 } = tile;
+        let w = self.spec.width as i64;
+        let res = self.spec.resolution;
+        let (sc, sr) = (walk.step_col, walk.step_row);
+        // The first cell of the walk inside the tile, and the parameter at which it is entered.
+        let mut c = walk.start;
+        let mut t_enter = 0i64;
+        if c.row < r0 || c.row >= r1 {
+            let entry = if sr > 0 && c.row < r0 {
+                r0
+            } else if sr < 0 && c.row >= r1 {
+                r1 - 1
+            } else {
+                return;
+            };
+            match walk.enter_row(entry) {
+                Some((e, t)) => {
+                    t_enter = t;
+                    c = e;
+                }
+                None => return,
+            }
+        }
+        if c.col < c0 || c.col >= c1 {
+            let entry = if sc > 0 && c.col < c0 {
+                c0
+            } else if sc < 0 && c.col >= c1 {
+                c1 - 1
+            } else {
+                return;
+            };
+            // The walk steps from column entry - sc into entry at tc, from the first row it
+            // leaves strictly after tc (while a row is left at or before tc it steps rows).
+            let tc = walk.leave_col(entry - sc);
+            if tc >= walk.len {
+                return;
+            }
+            let row = if sr != 0 {
+                walk.first_row_leaving(c.row, tc, true)
+            } else {
+                c.row
+            };
+            if row < r0 || row >= r1 {
+                return;
+            }
+            c = CellIndex::new(entry, row);
+            t_enter = tc;
+        }
+        let free = plan.model.free_increment() as f32;
+        // The exact increment of one cell (what the plain loop computes for it).
+        let exact = |col: i64, row: i64| -> f32 {
+            if hit {
+                let ex = col as f64 * res + ex0;
+                let ey = row as f64 * res + ey0;
+                plan.model.hit_increment((ex * ex + ey * ey).sqrt(), z) as f32
+            } else {
+                free
+            }
+        };
+        let ahead = |x: i64, limit: i64, step: i64| (x - limit) * step >= 0;
+        let ratio = walk.cols_per_row();
+        if ratio >= RUN_RATIO {
+            // Mostly along x: in row r the walk takes columns c..=last, where `last` is the
+            // first column it leaves at or after min(leave_row(r), length).
+            loop {
+                let tr = walk.leave_row(c.row);
+                let last = walk.first_col_leaving(c.col, tr.min(walk.len), false);
+                // Cells entered before `free_until` get the free increment: the first cell if
+                // t_enter is, and every later cell whose previous column is left before it.
+                let last_enter = if last == c.col {
+                    t_enter
+                } else {
+                    walk.leave_col(last - sc)
+                };
+                let free_last = if last_enter < free_until {
+                    last
+                } else if t_enter < free_until {
+                    walk.first_col_leaving(c.col, free_until, false)
+                } else {
+                    c.col - sc
+                };
+                let row_base = c.row * w;
+                if ahead(free_last, c.col, sc) {
+                    let (a, b) = (
+                        c.col.min(free_last).max(c0),
+                        c.col.max(free_last).min(c1 - 1),
+                    );
+                    if a <= b {
+                        sink.run((row_base + a) as usize, 1, (b - a + 1) as usize, free);
+                    }
+                }
+                let mut col = free_last + sc;
+                while ahead(last, col, sc) && col >= c0 && col < c1 {
+                    sink.cell((row_base + col) as usize, exact(col, c.row));
+                    col += sc;
+                }
+                // Past the tile's columns the walk never comes back.
+                if !(c0..c1).contains(&last) {
+                    return;
+                }
+                let tc = walk.leave_col(last);
+                if tc < tr || tr >= walk.len {
+                    return;
+                }
+                c = CellIndex::new(last, c.row + sr);
+                t_enter = tr;
+                if c.row < r0 || c.row >= r1 {
+                    return;
+                }
+            }
+        } else if ratio <= 1.0 / RUN_RATIO {
+            // Mostly along y: in column c the walk takes rows while a row's leaving parameter
+            // is at most leave_col(c) and below the length.
+            let end_row = walk.first_row_leaving(c.row, walk.len, false);
+            loop {
+                let tc = walk.leave_col(c.col);
+                let last = if tc < walk.len {
+                    let by_col = walk.first_row_leaving(c.row, tc, true);
+                    if ahead(by_col, end_row, sr) {
+                        end_row
+                    } else {
+                        by_col
+                    }
+                } else {
+                    end_row
+                };
+                let last_enter = if last == c.row {
+                    t_enter
+                } else {
+                    walk.leave_row(last - sr)
+                };
+                let free_last = if last_enter < free_until {
+                    last
+                } else if t_enter < free_until {
+                    walk.first_row_leaving(c.row, free_until, false)
+                } else {
+                    c.row - sr
+                };
+                if ahead(free_last, c.row, sr) {
+                    let (a, b) = (
+                        c.row.min(free_last).max(r0),
+                        c.row.max(free_last).min(r1 - 1),
+                    );
+                    if a <= b {
+                        sink.run(
+                            (a * w + c.col) as usize,
+                            w as usize,
+                            (b - a + 1) as usize,
+                            free,
+                        );
+                    }
+                }
+                let mut row = free_last + sr;
+                while ahead(last, row, sr) && row >= r0 && row < r1 {
+                    sink.cell((row * w + c.col) as usize, exact(c.col, row));
+                    row += sr;
+                }
+                if !(r0..r1).contains(&last) {
+                    return;
+                }
+                let tr = walk.leave_row(last);
+                if tc >= tr || tc >= walk.len {
+                    return;
+                }
+                c = CellIndex::new(c.col + sc, last);
+                t_enter = tc;
+                if c.col < c0 || c.col >= c1 {
+                    return;
+                }
+            }
+        } else {
+            // Near the diagonal stretches are short: walk cell by cell, stepping the integer
+            // crossing parameters by addition.
+            let (mut tc, mut tr) = (walk.leave_col(c.col), walk.leave_row(c.row));
+            let (ca, ra) = (walk.col_step(), walk.row_step());
+            let (di_col, di_row) = (sc as isize, (sr * w) as isize);
+            let mut i = (c.row * w + c.col) as isize;
+            loop {
+                let inc = if t_enter < free_until {
+                    free
+                } else {
+                    exact(c.col, c.row)
+                };
+                sink.cell(i as usize, inc);
+                // Branch-free step: which axis is crossed first is unpredictable near the
+                // diagonal, so both candidates are computed and one is selected.
+                let x = tc < tr;
+                let t = if x { tc } else { tr };
+                if t >= walk.len {
+                    return;
+                }
+                t_enter = t;
+                c.col += if x { sc } else { 0 };
+                c.row += if x { 0 } else { sr };
+                i += if x { di_col } else { di_row };
+                tc += if x { ca } else { 0 };
+                tr += if x { 0 } else { ra };
+                if c.col < c0 || c.col >= c1 || c.row < r0 || c.row >= r1 {
+                    return;
+                }
+            }
+        }
+    }
+
+    /// Sends every cell of a job inside `tile` to `sink`.
+    #[inline(always)]
+    fn job_in_tile(&self, job: &Job, tile: Tile, sink: &mut impl Sink) {
+        match *job {
+            Job::Ray {
+                sensor,
+                ref walk,
+                ex0,
+                ey0,
+                z,
+                hit,
+                free_until,
+                ..
+            } => {
+                let plan = &self.plans[sensor as usize];
+                self.ray_in_tile(plan, walk, ex0, ey0, z, hit, free_until, tile, sink);
+            }
+            Job::Cone {
+                sensor,
+                origin,
+                heading,
+                reach_m,
+                reading,
+                ..
+            } => {
+                let plan = &self.plans[sensor as usize];
+                let w = self.spec.width as i64;
+                for_each_cone_cell(
+                    &self.spec,
+                    origin,
+                    heading,
+                    plan.cone_width,
+                    reach_m,
+                    tile.r0..tile.r1,
+                    |cc| {
+                        if cc.cell.col < tile.c0 || cc.cell.col >= tile.c1 {
+                            return;
+                        }
+                        let inc = match reading {
+                            Reading::Hit(z) => plan.model.cone_hit_increment(
+                                cc.distance,
+                                z,
+                                cc.bearing,
+                                plan.cone_width,
+                            ),
+                            _ => plan.model.cone_free_increment(cc.bearing, plan.cone_width),
+                        } as f32;
+                        sink.cell((cc.cell.row * w + cc.cell.col) as usize, inc);
+                    },
+                );
+            }
+        }
+    }
+
+    /// Applies one tile's share of a chunk: `list` holds, in order, the jobs that can reach the
+    /// tile; `frame_ends[k]` is the end of frame k's jobs.
+    ///
+    /// # Safety
+    /// `cells` must point at the grid's values, and no other thread may touch cells of `tile`
+    /// while this runs.
+    unsafe fn run_tile(
+        &self,
+        list: &[u32],
+        frame_ends: &[usize],
+        jobs: &[Job],
+        tile: Tile,
+        cells: Cells,
+        scratch: &mut CellMap<Strongest>,
+    ) {
+        let (lo, hi) = (self.lo, self.hi);
+        match self.params.fusion {
+            FusionRule::EveryBeam => {
+                let mut sink = Apply { cells, lo, hi };
+                for &j in list {
+                    self.job_in_tile(&jobs[j as usize], tile, &mut sink);
+                }
+            }
+            FusionRule::OncePerCell => {
+                // Frame by frame: collect each cell's strongest increment, then apply it.
+                let mut k = 0;
+                let mut frame = 0;
+                while k < list.len() {
+                    while frame_ends[frame] <= list[k] as usize {
+                        frame += 1;
+                    }
+                    scratch.clear();
+                    let mut sink = Collect { scratch };
+                    while k < list.len() && (list[k] as usize) < frame_ends[frame] {
+                        self.job_in_tile(&jobs[list[k] as usize], tile, &mut sink);
+                        k += 1;
+                    }
+                    for (&i, s) in scratch.iter() {
+                        // SAFETY: `i` is a cell of this tile (the sink only receives those).
+                        let v = unsafe { &mut *cells.0.add(i) };
+                        *v = Clamp::apply(lo, hi, *v, s.chosen().0);
+                    }
+                }
+            }
+        }
+    }
+
+    /// Integrates frames onto `values` (row-major, the builder's grid): in parallel tiles on
+    /// the current rayon pool when `parallel`, else as one tile. `after_chunk(frames_done)` is
+    /// called between chunks and returns false to stop.
+    pub(super) fn integrate_bands(
+        &self,
+        values: &mut [f32],
+        frames: Range<usize>,
+        parallel: bool,
+        after_chunk: &mut dyn FnMut(usize) -> bool,
+    ) {
+        let w = self.spec.width as i64;
+        let h = self.spec.height as i64;
+        assert_eq!(
+            values.len(),
+            (w * h) as usize,
+            "values of this builder's grid"
+        );
+        let side = if parallel { TILE } else { w.max(h) };
+        let (tw, th) = ((w + side - 1) / side, (h + side - 1) / side);
+        let tiles: Vec<Tile> = (0..th)
+            .flat_map(|ty| {
+                (0..tw).map(move |tx| Tile {
+                    r0: ty * side,
+                    r1: ((ty + 1) * side).min(h),
+                    c0: tx * side,
+                    c1: ((tx + 1) * side).min(w),
+                })
+            })
+            .collect();
+        let cells = Cells(values.as_mut_ptr());
+        // The frames of each chunk: about CHUNK_BEAMS beams.
+        let mut chunks: Vec<Range<usize>> = Vec::new();
+        let mut f = frames.start;
+        while f < frames.end {
+            let mut end = f;
+            let mut beams = 0;
+            while end < frames.end && (end == f || beams < CHUNK_BEAMS) {
+                beams += self.session.frames[end]
+                    .scans
+                    .iter()
+                    .map(|s| self.session.sensors[s.sensor].beam_count())
+                    .sum::<usize>();
+                end += 1;
+            }
+            chunks.push(f..end);
+            f = end;
+        }
+        // Prepares a chunk: its jobs, frame ends and per-tile job lists (in order).
+        let fill = |range: Range<usize>, c: &mut Chunk| {
+            self.prepare(range, &mut c.jobs, &mut c.frame_ends);
+            c.lists.resize_with(tiles.len(), Vec::new);
+            c.lists.iter_mut().for_each(Vec::clear);
+            for (j, job) in c.jobs.iter().enumerate() {
+                let (a, b) = job.reach();
+                if b.col < 0 || b.row < 0 || a.col >= w || a.row >= h {
+                    continue;
+                }
+                let (tx0, tx1) = (a.col.max(0) / side, b.col.min(w - 1) / side);
+                let (ty0, ty1) = (a.row.max(0) / side, b.row.min(h - 1) / side);
+                for ty in ty0..=ty1 {
+                    for tx in tx0..=tx1 {
+                        c.lists[(ty * tw + tx) as usize].push(j as u32);
+                    }
+                }
+            }
+        };
+        // Runs a prepared chunk on its tiles.
+        let apply = |c: &Chunk| {
+            let run = |(tile, list): (&Tile, &Vec<u32>), scratch: &mut CellMap<Strongest>| {
+                if !list.is_empty() {
+                    // SAFETY: tiles are disjoint and each is run by exactly one task below.
+                    unsafe { self.run_tile(list, &c.frame_ends, &c.jobs, *tile, cells, scratch) };
+                }
+            };
+            if tiles.len() == 1 {
+                run((&tiles[0], &c.lists[0]), &mut CellMap::default());
+            } else {
+                tiles
+                    .par_iter()
+                    .zip(c.lists.par_iter())
+                    .with_max_len(1)
+                    .for_each_init(CellMap::default, |scratch, t| run(t, scratch));
+            }
+        };
+        let (mut current, mut next) = (Chunk::default(), Chunk::default());
+        let Some(first) = chunks.first() else { return };
+        fill(first.clone(), &mut current);
+        for k in 0..chunks.len() {
+            // Apply chunk k while chunk k + 1 is prepared (when running in parallel).
+            match chunks.get(k + 1) {
+                Some(r) if parallel => {
+                    rayon::join(|| apply(&current), || fill(r.clone(), &mut next));
+                }
+                Some(r) => {
+                    apply(&current);
+                    fill(r.clone(), &mut next);
+                }
+                None => apply(&current),
+            }
+            std::mem::swap(&mut current, &mut next);
+            if !after_chunk(chunks[k].end - frames.start) {
+                return;
+            }
+        }
+    }
+}
+
+/// A prepared chunk of frames: jobs in order, the end of each frame's jobs, and each tile's
+/// list of jobs that can reach it.
+#[derive(Default)]
+struct Chunk {
+    jobs: Vec<Job>,
+    frame_ends: Vec<usize>,
+    lists: Vec<Vec<u32>>,
+}
+
+/// Where the cells of a beam go, by grid index: stretches of cells that all get one
+/// increment, and single cells.
+trait Sink {
+    /// `count` cells from `start`, `stride` apart, each getting `inc`.
+    fn run(&mut self, start: usize, stride: usize, count: usize, inc: f32);
+    /// One cell getting `inc`.
+    fn cell(&mut self, i: usize, inc: f32);
+}
+
+/// EveryBeam: add and clamp at once.
+struct Apply {
+    cells: Cells,
+    lo: f32,
+    hi: f32,
+}
+
+impl Sink for Apply {
+    #[inline(always)]
+    fn run(&mut self, start: usize, stride: usize, count: usize, inc: f32) {
+        let (lo, hi) = (self.lo, self.hi);
+        if stride == 1 {
+            // SAFETY: the stretch lies inside the running tile (clipped by `ray_in_tile`).
+            let cells = unsafe { std::slice::from_raw_parts_mut(self.cells.0.add(start), count) };
+            for v in cells {
+                *v = Clamp::apply(lo, hi, *v, inc);
+            }
+        } else {
+            for k in 0..count {
+                // SAFETY: as above, every cell of the stretch is in the tile.
+                let v = unsafe { &mut *self.cells.0.add(start + k * stride) };
+                *v = Clamp::apply(lo, hi, *v, inc);
+            }
+        }
+    }
+
+    #[inline(always)]
+    fn cell(&mut self, i: usize, inc: f32) {
+        // SAFETY: `ray_in_tile` and `job_in_tile` only send cells of the running tile.
+        let v = unsafe { &mut *self.cells.0.add(i) };
+        *v = Clamp::apply(self.lo, self.hi, *v, inc);
+    }
+}
+
+/// OncePerCell: remember each cell's strongest increment of the frame.
+struct Collect<'a> {
+    scratch: &'a mut CellMap<Strongest>,
+}
+
+impl Sink for Collect<'_> {
+    fn run(&mut self, start: usize, stride: usize, count: usize, inc: f32) {
+        for k in 0..count {
+            self.cell(start + k * stride, inc);
+        }
+    }
+
+    #[inline(always)]
+    fn cell(&mut self, i: usize, inc: f32) {
+        self.scratch
+            .entry(i)
+            .and_modify(|s| s.add(inc, (0, 0)))
+            .or_insert_with(|| Strongest::new(inc, (0, 0)));
+    }
+}

@@ -42,7 +42,7 @@ const RUN_RATIO: f64 = 3.0;
 const TILE: i64 = 128;
 
 /// Beams prepared per chunk (bounds memory; a chunk is shared by all tiles).
-const CHUNK_BEAMS: usize = 1 << 16;
+const CHUNK_BEAMS: usize = 1 << 18;
 
 /// One beam, ready for the inner loop.
 #[derive(Clone, Copy, Debug)]
@@ -259,13 +259,22 @@ impl MapBuilder {
         }
         let free = plan.model.free_increment() as f32;
         // The exact increment of one cell (what the plain loop computes for it).
+        // A cell whose centre is closer than this (squared, metres) is still free: a hair inside
+        // free_below, so the plain loop's d - z is surely in the free zone too.
+        let fb = if hit {
+            plan.model.free_below(z) - 1e-9
+        } else {
+            f64::INFINITY
+        };
+        let free_sq = if fb > 0.0 { fb * fb } else { -1.0 };
         let exact = |col: i64, row: i64| -> f32 {
-            if hit {
-                let ex = col as f64 * res + ex0;
-                let ey = row as f64 * res + ey0;
-                plan.model.hit_increment((ex * ex + ey * ey).sqrt(), z) as f32
-            } else {
+            let ex = col as f64 * res + ex0;
+            let ey = row as f64 * res + ey0;
+            let d2 = ex * ex + ey * ey;
+            if !hit || d2 < free_sq {
                 free
+            } else {
+                plan.model.hit_increment(d2.sqrt(), z) as f32
             }
         };
         let ahead = |x: i64, limit: i64, step: i64| (x - limit) * step >= 0;

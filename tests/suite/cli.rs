@@ -110,6 +110,11 @@ fn every_subcommand_has_help() {
         vec!["info", "--help"],
         vec!["simulate", "--help"],
         vec!["history", "--help"],
+        vec!["score", "--help"],
+        vec!["sweep", "--help"],
+        vec!["pack", "--help"],
+        vec!["bench", "--help"],
+        vec!["open", "--help"],
     ] {
         let o = gridscope(&sub);
         assert!(o.status.success(), "{sub:?}");
@@ -298,4 +303,115 @@ fn simulate_writes_a_session_and_its_reference() {
     ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("route.speed"), "{}", stderr(&o));
+}
+
+#[test]
+fn pack_converts_to_arrays_and_back() {
+    let dir = scratch("pack");
+    let packed = dir.join("run.session.ron");
+    let o = gridscope(&["pack", "demo:glass-pass", "--out", packed.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(
+        files_in(&dir),
+        [
+            "run.bumper_sonar.npy",
+            "run.lidar.npy",
+            "run.poses.npy",
+            "run.session.ron",
+            "run.times.npy"
+        ]
+    );
+    let header = std::fs::read_to_string(&packed).unwrap();
+    assert!(header.contains("frames_from") && !header.contains("ranges: ["));
+    // The packed session builds the same map as the inline one.
+    let a = dir.join("a");
+    let b = dir.join("b");
+    assert!(
+        gridscope(&[
+            "build",
+            packed.to_str().unwrap(),
+            "--out",
+            a.to_str().unwrap()
+        ])
+        .status
+        .success()
+    );
+    assert!(
+        gridscope(&["build", "demo:glass-pass", "--out", b.to_str().unwrap()])
+            .status
+            .success()
+    );
+    assert_eq!(
+        std::fs::read(dir.join("a.npy")).unwrap(),
+        std::fs::read(dir.join("b.npy")).unwrap()
+    );
+    // And back to inline.
+    let inline = dir.join("inline.session.ron");
+    let o = gridscope(&[
+        "pack",
+        packed.to_str().unwrap(),
+        "--out",
+        inline.to_str().unwrap(),
+        "--inline",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let s = gridscope::Session::load(&inline).unwrap();
+    assert_eq!(
+        s.frames,
+        gridscope::demo::session("glass-pass").unwrap().frames
+    );
+    // A damaged array is refused with exit status 2, naming the file.
+    std::fs::write(dir.join("run.lidar.npy"), b"\x93NUMPY garbage").unwrap();
+    let o = gridscope(&["info", packed.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("run.lidar.npy"), "{}", stderr(&o));
+}
+
+#[test]
+fn bench_reports_every_key_and_identical_grids() {
+    // A tiny run: this checks the report, not the speed (speed belongs to the benchmark).
+    let o = gridscope(&[
+        "bench", "--frames", "40", "--beams", "181", "--width", "40", "--height", "30", "--reps",
+        "1", "--seeks", "3",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = String::from_utf8(o.stdout).unwrap();
+    let keys: Vec<&str> = text
+        .lines()
+        .filter_map(|l| l.split_once('=').map(|(k, _)| k))
+        .collect();
+    for k in [
+        "cells_touched",
+        "floor_updates_per_s",
+        "seq_updates_per_s",
+        "par_updates_per_s",
+        "threads",
+        "speedup",
+        "floor_ratio",
+        "bit_identical",
+        "seek_ms_median",
+        "seek_ms_max",
+        "load_numbers_per_s",
+        "peak_rss_mb",
+    ] {
+        assert!(keys.contains(&k), "{k} missing from\n{text}");
+    }
+    assert_eq!(
+        &keys[..12],
+        &[
+            "cells_touched",
+            "floor_updates_per_s",
+            "seq_updates_per_s",
+            "par_updates_per_s",
+            "threads",
+            "speedup",
+            "floor_ratio",
+            "bit_identical",
+            "seek_ms_median",
+            "seek_ms_max",
+            "load_numbers_per_s",
+            "peak_rss_mb",
+        ]
+    );
+    assert!(text.lines().any(|l| l == "bit_identical=true"), "{text}");
 }

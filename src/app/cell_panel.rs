@@ -145,12 +145,12 @@ impl CellPanel {
             .id_salt("cell updates")
             .striped(true)
             .sense(egui::Sense::click())
+            .column(Column::exact(46.0))
             .column(Column::exact(52.0))
-            .column(Column::exact(60.0))
-            .column(Column::exact(80.0))
-            .column(Column::exact(42.0))
-            .columns(Column::exact(70.0), 2)
-            .column(Column::remainder().at_least(50.0))
+            .column(Column::exact(70.0))
+            .column(Column::exact(38.0))
+            .columns(Column::exact(64.0), 2)
+            .column(Column::remainder().at_least(60.0))
             .header(row_height + 4.0, |mut h| {
                 for (title, tip) in [
                     ("frame", "frame index"),

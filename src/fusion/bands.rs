@@ -20,13 +20,13 @@
 //! - beams are prepared once per chunk (origin, direction, traversal constants, the cells they
 //!   can reach) and shared by all tiles.
 
-use super::{CellMap, MapBuilder, SensorPlan, Strongest, beam_reach};
+use super::{CellMap, MapBuilder, SensorPlan, Strongest};
 use crate::footprint::{RayWalk, for_each_cone_cell, param};
 use crate::geometry::Point2;
 use crate::grid::CellIndex;
 use crate::logodds::Clamp;
 use crate::params::FusionRule;
-use crate::session::{BeamRef, Reading, SensorKind};
+use crate::session::{Reading, SensorKind};
 use rayon::prelude::*;
 use std::ops::Range;
 
@@ -112,12 +112,8 @@ impl MapBuilder {
 
     fn frame_jobs(&self, f: usize) -> Vec<Job> {
         let mut out = Vec::new();
-        if self.params.exclude.frame_excluded(f) {
-            return out;
-        }
         let spec = &self.spec;
         let res = spec.resolution;
-        let frame = &self.session.frames[f];
         let widen = |a: CellIndex, b: CellIndex| {
             // One cell of slack for end points on cell boundaries.
             (
@@ -125,70 +121,51 @@ impl MapBuilder {
                 CellIndex::new(a.col.max(b.col) + 1, a.row.max(b.row) + 1),
             )
         };
-        for scan in &frame.scans {
-            let plan = &self.plans[scan.sensor];
-            if plan.excluded {
-                continue;
-            }
-            let sensor = &self.session.sensors[scan.sensor];
-            let pose = frame.pose.compose(&sensor.mount);
-            let origin = pose.position();
-            for (beam, &raw) in self.session.ranges(*scan).iter().enumerate() {
-                if !self.excluded_beams.is_empty()
-                    && self.excluded_beams.contains(&BeamRef {
-                        frame: f,
-                        sensor: scan.sensor,
-                        beam,
-                    })
-                {
-                    continue;
-                }
-                let reading = sensor.classify(raw);
-                let Some(reach) = beam_reach(plan, reading, self.params.no_return) else {
-                    continue;
-                };
-                let heading = pose.theta + sensor.angles.angle(beam);
-                let s = scan.sensor as u32;
-                match plan.kind {
-                    SensorKind::Ray => {
-                        let walk = RayWalk::new(spec, origin, heading, reach);
-                        let end = walk.end(origin);
-                        let (z, hit, free_until) = match reading {
-                            // Rounding to fixed point moves this by 1e-12 m, far inside the
-                            // margin of CENTRE_REACH over sqrt(2)/2 (1.6e-7 m at 5 cm cells).
-                            Reading::Hit(z) => (
-                                z,
-                                true,
-                                param(plan.model.free_below(z) - res * CENTRE_REACH),
-                            ),
-                            _ => (0.0, false, i64::MAX),
-                        };
-                        out.push(Job::Ray {
-                            sensor: s,
-                            walk,
-                            ex0: spec.origin.x + 0.5 * res - origin.x,
-                            ey0: spec.origin.y + 0.5 * res - origin.y,
+        self.for_each_included_beam(f, |b| {
+            let s = b.sensor as u32;
+            match b.plan.kind {
+                SensorKind::Ray => {
+                    let walk = RayWalk::new(spec, b.origin, b.heading, b.reach);
+                    let end = walk.end(b.origin);
+                    let (z, hit, free_until) = match b.reading {
+                        // Rounding to fixed point moves this by 1e-12 m, far inside the margin
+                        // of CENTRE_REACH over sqrt(2)/2 (1.5e-7 m at 5 cm cells).
+                        Reading::Hit(z) => (
                             z,
-                            hit,
-                            free_until,
-                            reach: widen(walk.start, spec.cell_at(end)),
-                        });
-                    }
-                    SensorKind::Cone => {
-                        let b =
-                            crate::footprint::cone_bounds(origin, heading, plan.cone_width, reach);
-                        out.push(Job::Cone {
-                            sensor: s,
-                            origin,
-                            heading,
-                            reach_m: reach,
-                            reading,
-                            reach: widen(spec.cell_at(b.min), spec.cell_at(b.max)),
-                        });
-                    }
+                            true,
+                            param(b.plan.model.free_below(z) - res * CENTRE_REACH),
+                        ),
+                        _ => (0.0, false, i64::MAX),
+                    };
+                    out.push(Job::Ray {
+                        sensor: s,
+                        walk,
+                        ex0: spec.origin.x + 0.5 * res - b.origin.x,
+                        ey0: spec.origin.y + 0.5 * res - b.origin.y,
+                        z,
+                        hit,
+                        free_until,
+                        reach: widen(walk.start, spec.cell_at(end)),
+                    });
+                }
+                SensorKind::Cone => {
+                    let bounds = crate::footprint::cone_bounds(
+                        b.origin,
+                        b.heading,
+                        b.plan.cone_width,
+                        b.reach,
+                    );
+                    out.push(Job::Cone {
+                        sensor: s,
+                        origin: b.origin,
+                        heading: b.heading,
+                        reach_m: b.reach,
+                        reading: b.reading,
+                        reach: widen(spec.cell_at(bounds.min), spec.cell_at(bounds.max)),
+                    });
                 }
             }
-        }
+        });
         out
     }
 

@@ -71,6 +71,21 @@ pub struct CellUpdate {
     pub clamped: bool,
 }
 
+/// A beam that takes part in the fusion, resolved into world terms.
+#[derive(Clone, Copy)]
+struct Included<'a> {
+    sensor: usize,
+    beam: usize,
+    plan: &'a SensorPlan,
+    /// Beam origin, world metres.
+    origin: Point2,
+    /// Beam axis, radians, world frame.
+    heading: f64,
+    reading: Reading,
+    /// How far the beam reaches, metres.
+    reach: f64,
+}
+
 /// Per-sensor constants of the fusion loop.
 #[derive(Clone, Debug)]
 struct SensorPlan {
@@ -356,9 +371,13 @@ impl MapBuilder {
         }
     }
 
-    /// Calls `visit(sensor, beam, storage_index, increment)` for every in-grid cell touched by
-    /// every included beam of frame `f`, in the contract's order.
-    fn for_each_beam_touch(&self, f: usize, mut visit: impl FnMut(usize, usize, usize, f32)) {
+    /// Calls `visit` for every beam of frame `f` that takes part in the fusion (not excluded,
+    /// and touching something: invalid readings and ignored no-returns are skipped), in the
+    /// contract's order. Every fusion path iterates beams through this one function.
+    fn for_each_included_beam(&self, f: usize, mut visit: impl FnMut(Included<'_>)) {
+        if self.params.exclude.frame_excluded(f) {
+            return;
+        }
         let frame = &self.session.frames[f];
         for scan in &frame.scans {
             let plan = &self.plans[scan.sensor];
@@ -369,6 +388,10 @@ impl MapBuilder {
             let pose = frame.pose.compose(&sensor.mount);
             let origin = pose.position();
             for (beam, &raw) in self.session.ranges(*scan).iter().enumerate() {
+                let reading = sensor.classify(raw);
+                let Some(reach) = beam_reach(plan, reading, self.params.no_return) else {
+                    continue;
+                };
                 if !self.excluded_beams.is_empty()
                     && self.excluded_beams.contains(&BeamRef {
                         frame: f,
@@ -378,13 +401,31 @@ impl MapBuilder {
                 {
                     continue;
                 }
-                let heading = pose.theta + sensor.angles.angle(beam);
-                let reading = sensor.classify(raw);
-                self.beam_touches(plan, origin, heading, reading, &mut |idx, _, _, inc| {
-                    visit(scan.sensor, beam, idx, inc)
+                visit(Included {
+                    sensor: scan.sensor,
+                    beam,
+                    plan,
+                    origin,
+                    heading: pose.theta + sensor.angles.angle(beam),
+                    reading,
+                    reach,
                 });
             }
         }
+    }
+
+    /// Calls `visit(sensor, beam, storage_index, increment)` for every in-grid cell touched by
+    /// every included beam of frame `f`, in the contract's order.
+    fn for_each_beam_touch(&self, f: usize, mut visit: impl FnMut(usize, usize, usize, f32)) {
+        self.for_each_included_beam(f, |b| {
+            self.beam_touches(
+                b.plan,
+                b.origin,
+                b.heading,
+                b.reading,
+                &mut |idx, _, _, inc| visit(b.sensor, b.beam, idx, inc),
+            );
+        });
     }
 
     /// The footprint of one beam with increments: calls `visit(storage_index, cell, distance,
@@ -579,67 +620,48 @@ impl MapBuilder {
         let slack = self.spec.resolution * 1.5;
         let end = until.min(self.session.frames.len());
         for f in 0..end {
-            if self.params.exclude.frame_excluded(f) {
-                continue;
-            }
             let frame = &self.session.frames[f];
             let mut strongest: Option<Strongest> = None;
-            for scan in &frame.scans {
-                let plan = &self.plans[scan.sensor];
-                if plan.excluded {
-                    continue;
+            self.for_each_included_beam(f, |b| {
+                // Cheap rejection: the cell's centre must lie within the beam's reach.
+                let dx = centre.x - b.origin.x;
+                let dy = centre.y - b.origin.y;
+                if dx * dx + dy * dy > (b.reach + slack) * (b.reach + slack) {
+                    return;
                 }
-                let sensor = &self.session.sensors[scan.sensor];
-                let pose = frame.pose.compose(&sensor.mount);
-                let origin = pose.position();
-                for (beam, &raw) in self.session.ranges(*scan).iter().enumerate() {
-                    let reading = sensor.classify(raw);
-                    let Some(reach) = beam_reach(plan, reading, self.params.no_return) else {
-                        continue;
-                    };
-                    // Cheap rejection: the cell's centre must lie within the beam's reach.
-                    let dx = centre.x - origin.x;
-                    let dy = centre.y - origin.y;
-                    if dx * dx + dy * dy > (reach + slack) * (reach + slack) {
-                        continue;
-                    }
-                    let b = BeamRef {
-                        frame: f,
-                        sensor: scan.sensor,
-                        beam,
-                    };
-                    if !self.excluded_beams.is_empty() && self.excluded_beams.contains(&b) {
-                        continue;
-                    }
-                    let heading = pose.theta + sensor.angles.angle(beam);
-                    let mut hit: Option<f32> = None;
-                    self.beam_touches(plan, origin, heading, reading, &mut |idx, _, _, inc| {
+                let mut hit: Option<f32> = None;
+                self.beam_touches(
+                    b.plan,
+                    b.origin,
+                    b.heading,
+                    b.reading,
+                    &mut |idx, _, _, inc| {
                         if idx == target {
                             hit = Some(inc);
                         }
-                    });
-                    let Some(inc) = hit else { continue };
-                    match self.params.fusion {
-                        FusionRule::EveryBeam => {
-                            let raw = value + inc;
-                            value = raw.clamp(lo, hi);
-                            out.push(CellUpdate {
-                                frame: f,
-                                t: frame.t,
-                                sensor: scan.sensor,
-                                beam,
-                                increment: inc,
-                                value,
-                                clamped: value != raw,
-                            });
-                        }
-                        FusionRule::OncePerCell => match &mut strongest {
-                            Some(s) => s.add(inc, (scan.sensor, beam)),
-                            None => strongest = Some(Strongest::new(inc, (scan.sensor, beam))),
-                        },
+                    },
+                );
+                let Some(inc) = hit else { return };
+                match self.params.fusion {
+                    FusionRule::EveryBeam => {
+                        let raw = value + inc;
+                        value = raw.clamp(lo, hi);
+                        out.push(CellUpdate {
+                            frame: f,
+                            t: frame.t,
+                            sensor: b.sensor,
+                            beam: b.beam,
+                            increment: inc,
+                            value,
+                            clamped: value != raw,
+                        });
                     }
+                    FusionRule::OncePerCell => match &mut strongest {
+                        Some(s) => s.add(inc, (b.sensor, b.beam)),
+                        None => strongest = Some(Strongest::new(inc, (b.sensor, b.beam))),
+                    },
                 }
-            }
+            });
             if let Some(s) = strongest {
                 let (inc, (sensor, beam)) = s.chosen();
                 let raw = value + inc;

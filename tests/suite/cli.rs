@@ -380,7 +380,8 @@ fn bench_reports_every_key_and_identical_grids() {
         .lines()
         .filter_map(|l| l.split_once('=').map(|(k, _)| k))
         .collect();
-    for k in [
+    // The keys the benchmark promises, first and in this order.
+    let promised = [
         "cells_touched",
         "floor_updates_per_s",
         "seq_updates_per_s",
@@ -393,25 +394,11 @@ fn bench_reports_every_key_and_identical_grids() {
         "seek_ms_max",
         "load_numbers_per_s",
         "peak_rss_mb",
-    ] {
-        assert!(keys.contains(&k), "{k} missing from\n{text}");
-    }
+    ];
     assert_eq!(
-        &keys[..12],
-        &[
-            "cells_touched",
-            "floor_updates_per_s",
-            "seq_updates_per_s",
-            "par_updates_per_s",
-            "threads",
-            "speedup",
-            "floor_ratio",
-            "bit_identical",
-            "seek_ms_median",
-            "seek_ms_max",
-            "load_numbers_per_s",
-            "peak_rss_mb",
-        ]
+        &keys[..promised.len().min(keys.len())],
+        &promised[..],
+        "{text}"
     );
     assert!(text.lines().any(|l| l == "bit_identical=true"), "{text}");
 }

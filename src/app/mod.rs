@@ -117,6 +117,11 @@ pub(crate) fn plot_x_axis(label: &str) -> Vec<egui_plot::AxisHints<'static>> {
     ]
 }
 
+/// The grid to show: a rebuild's partial grid while one runs, else the current frame's.
+fn displayed<'a>(partial: &'a Option<Grid>, shown: &'a Option<Shown>) -> Option<&'a Grid> {
+    partial.as_ref().or(shown.as_ref().map(|s| &s.after))
+}
+
 /// Where the loaded session came from.
 #[derive(Clone, Debug, PartialEq)]
 pub enum Source {
@@ -562,9 +567,7 @@ impl GridscopeApp {
 
     /// The grid to display: the current frame's, or a partial one while rebuilding.
     pub fn display_grid(&self) -> Option<&Grid> {
-        self.partial
-            .as_ref()
-            .or(self.shown.as_ref().map(|s| &s.after))
+        displayed(&self.partial, &self.shown)
     }
 
     /// The selected beam as a reference into the session, in the frame shown.
@@ -785,6 +788,9 @@ impl GridscopeApp {
                 ));
             });
         }
+        let reading = self
+            .selected_beam()
+            .and_then(|b| Some((b.sensor, self.doc.as_ref()?.session.beam(b)?.reading)));
         if self.settings.show_tuning
             && let Some(doc) = &self.doc
         {
@@ -792,14 +798,6 @@ impl GridscopeApp {
                 .resizable(true)
                 .default_size(330.0)
                 .show(ui, |ui| {
-                    let reading = self.selection.beam.and_then(|(sensor, beam)| {
-                        let b = doc.session.beam(BeamRef {
-                            frame: self.frame,
-                            sensor,
-                            beam,
-                        })?;
-                        Some((sensor, b.reading))
-                    });
                     actions.extend(self.tuning.ui(ui, doc, reading, self.frame));
                 });
         }
@@ -813,10 +811,7 @@ impl GridscopeApp {
                 });
         }
         egui::CentralPanel::default().show(ui, |ui| {
-            let current = self
-                .partial
-                .as_ref()
-                .or(self.shown.as_ref().map(|s| &s.after));
+            let current = displayed(&self.partial, &self.shown);
             let pinned = self
                 .pinned
                 .as_ref()

@@ -214,12 +214,6 @@ impl RayWalk {
         v
     }
 
-    /// Whether the segment runs closer to the x axis than to the y axis (it crosses column
-    /// boundaries at least as often as row boundaries).
-    pub fn mostly_along_x(&self) -> bool {
-        self.col_step <= self.row_step
-    }
-
     /// How many column crossings the segment makes per row crossing (infinite when it never
     /// crosses a row boundary, 0 when it never crosses a column boundary).
     pub fn cols_per_row(&self) -> f64 {

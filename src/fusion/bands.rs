@@ -437,15 +437,7 @@ impl MapBuilder {
                         if cc.cell.col < tile.c0 || cc.cell.col >= tile.c1 {
                             return;
                         }
-                        let inc = match reading {
-                            Reading::Hit(z) => plan.model.cone_hit_increment(
-                                cc.distance,
-                                z,
-                                cc.bearing,
-                                plan.cone_width,
-                            ),
-                            _ => plan.model.cone_free_increment(cc.bearing, plan.cone_width),
-                        } as f32;
+                        let inc = plan.cone_increment(reading, &cc);
                         sink.cell((cc.cell.row * w + cc.cell.col) as usize, inc);
                     },
                 );

@@ -96,6 +96,21 @@ struct SensorPlan {
     excluded: bool,
 }
 
+impl SensorPlan {
+    /// Increment (log-odds, as the grid stores it) of one cone cell for a reading: the one
+    /// definition both the plain loop and the fast rebuild use.
+    #[inline]
+    fn cone_increment(&self, reading: Reading, cc: &crate::footprint::ConeCell) -> f32 {
+        (match reading {
+            Reading::Hit(z) => {
+                self.model
+                    .cone_hit_increment(cc.distance, z, cc.bearing, self.cone_width)
+            }
+            _ => self.model.cone_free_increment(cc.bearing, self.cone_width),
+        }) as f32
+    }
+}
+
 /// A session bound to a parameter profile and a grid geometry, ready to integrate frames.
 #[derive(Clone, Debug)]
 pub struct MapBuilder {
@@ -313,7 +328,6 @@ impl MapBuilder {
         let end = frames.end.min(self.session.frames.len());
         (frames.start.min(end)..end)
             .into_par_iter()
-            .filter(|&f| !self.params.exclude.frame_excluded(f))
             .map(|f| match self.params.fusion {
                 FusionRule::EveryBeam => {
                     let mut n = 0u64;
@@ -474,15 +488,7 @@ impl MapBuilder {
             }
             SensorKind::Cone => {
                 for cc in cone_cells(spec, origin, heading, plan.cone_width, reach) {
-                    let inc = match reading {
-                        Reading::Hit(z) => plan.model.cone_hit_increment(
-                            cc.distance,
-                            z,
-                            cc.bearing,
-                            plan.cone_width,
-                        ),
-                        _ => plan.model.cone_free_increment(cc.bearing, plan.cone_width),
-                    } as f32;
+                    let inc = plan.cone_increment(reading, &cc);
                     if let Some(idx) = spec.index(cc.cell) {
                         visit(idx, cc.cell, cc.distance, inc);
                     }

@@ -263,6 +263,15 @@ impl RayWalk {
     }
 }
 
+/// How many of the crossings `first`, `first + step`, `first + 2 * step`, ... lie below `t`
+/// (fixed point): exact integer division. With `first` = [`RayWalk::leave_col`] of a column and
+/// `step` = [`RayWalk::col_step`], the column crossings a walk from that column makes before `t`.
+#[inline(always)]
+pub fn crossings_before(first: i64, step: i64, t: i64) -> i64 {
+    // No segment reaches NEVER, so a larger `t` (i64::MAX for "no limit") counts the same.
+    steps_until(first, step, t.min(NEVER), false)
+}
+
 /// Steps k >= 0 from a position whose parameter is `at`, the parameter growing by `step` per
 /// step, until the parameter is `>= t` (or `> t` when `strict`): exact integer division.
 #[inline(always)]

@@ -184,15 +184,15 @@ impl PreparedModel {
         let x = d - z;
         match (&self.before, &self.after) {
             (Some(before), Some(after)) => {
-                if x <= self.front {
-                    self.l_free
-                } else if x <= 0.0 {
-                    before.eval(x)
-                } else if x <= self.back {
-                    after.eval(x)
-                } else {
-                    self.hit_increment_exact(d, z)
+                if x > self.back {
+                    return self.hit_increment_exact(d, z);
                 }
+                // Both tables are read and one value chosen, rather than branching: which
+                // side of the reading a cell centre lies on is unpredictable.
+                let b = before.eval(x.clamp(self.front, 0.0));
+                let a = after.eval(x.clamp(0.0, self.back));
+                let v = if x <= 0.0 { b } else { a };
+                if x <= self.front { self.l_free } else { v }
             }
             _ => {
                 // Band: piecewise constant, no table needed.

@@ -21,7 +21,7 @@
 //!   can reach) and shared by all tiles.
 
 use super::{CellMap, MapBuilder, SensorPlan, Strongest};
-use crate::footprint::{RayWalk, for_each_cone_cell, param};
+use crate::footprint::{RayWalk, crossings_before, for_each_cone_cell, param};
 use crate::geometry::Point2;
 use crate::grid::CellIndex;
 use crate::logodds::Clamp;
@@ -69,12 +69,16 @@ enum Job {
         reading: Reading,
         reach: (CellIndex, CellIndex),
     },
+    /// A slot a frame left unused (a beam that touches nothing); never listed for a tile.
+    Skipped,
 }
 
 impl Job {
-    fn reach(&self) -> (CellIndex, CellIndex) {
+    /// The cells the job can reach, `None` for a skipped slot.
+    fn reach(&self) -> Option<(CellIndex, CellIndex)> {
         match self {
-            Job::Ray { reach, .. } | Job::Cone { reach, .. } => *reach,
+            Job::Ray { reach, .. } | Job::Cone { reach, .. } => Some(*reach),
+            Job::Skipped => None,
         }
     }
 }
@@ -98,20 +102,20 @@ unsafe impl Send for Cells {}
 unsafe impl Sync for Cells {}
 
 impl MapBuilder {
-    /// Prepares the jobs of frames `frames` (exclusions applied) into `jobs`, and the end of
-    /// each frame's jobs into `ends` (both cleared first, their memory reused).
-    fn prepare(&self, frames: Range<usize>, jobs: &mut Vec<Job>, ends: &mut Vec<usize>) {
-        let per_frame: Vec<Vec<Job>> = frames.into_par_iter().map(|f| self.frame_jobs(f)).collect();
-        jobs.clear();
-        ends.clear();
-        for fj in per_frame {
-            jobs.extend(fj);
-            ends.push(jobs.len());
-        }
+    /// Slots frame `f` needs for its jobs: one per beam of its scans (an upper bound: beams
+    /// that touch nothing leave their slot unused).
+    fn frame_slots(&self, f: usize) -> usize {
+        self.session.frames[f]
+            .scans
+            .iter()
+            .map(|s| self.session.sensors[s.sensor].beam_count())
+            .sum()
     }
 
-    fn frame_jobs(&self, f: usize) -> Vec<Job> {
-        let mut out = Vec::new();
+    /// Writes the jobs of frame `f`, in the contract's order, to the front of `out` (at least
+    /// [`MapBuilder::frame_slots`] long) and returns how many there are.
+    fn fill_frame_jobs(&self, f: usize, out: &mut [Job]) -> usize {
+        let mut n = 0;
         let spec = &self.spec;
         let res = spec.resolution;
         let widen = |a: CellIndex, b: CellIndex| {
@@ -137,7 +141,7 @@ impl MapBuilder {
                         ),
                         _ => (0.0, false, i64::MAX),
                     };
-                    out.push(Job::Ray {
+                    out[n] = Job::Ray {
                         sensor: s,
                         walk,
                         ex0: spec.origin.x + 0.5 * res - b.origin.x,
@@ -146,7 +150,8 @@ impl MapBuilder {
                         hit,
                         free_until,
                         reach: widen(walk.start, spec.cell_at(end)),
-                    });
+                    };
+                    n += 1;
                 }
                 SensorKind::Cone => {
                     let bounds = crate::footprint::cone_bounds(
@@ -155,18 +160,19 @@ impl MapBuilder {
                         b.plan.cone_width,
                         b.reach,
                     );
-                    out.push(Job::Cone {
+                    out[n] = Job::Cone {
                         sensor: s,
                         origin: b.origin,
                         heading: b.heading,
                         reach_m: b.reach,
                         reading: b.reading,
                         reach: widen(spec.cell_at(bounds.min), spec.cell_at(bounds.max)),
-                    });
+                    };
+                    n += 1;
                 }
             }
         });
-        out
+        n
     }
 
     /// Sends every cell of a ray job inside `tile` to `sink` (by grid index): as stretches of
@@ -235,25 +241,19 @@ impl MapBuilder {
             t_enter = tc;
         }
         let free = plan.model.free_increment() as f32;
-        // The exact increment of one cell (what the plain loop computes for it).
-        // A cell whose centre is closer than this (squared, metres) is still free: a hair inside
-        // free_below, so the plain loop's d - z is surely in the free zone too.
-        let fb = if hit {
-            plan.model.free_below(z) - 1e-9
-        } else {
-            f64::INFINITY
+        // The exact increment of one cell (what the plain loop computes for it). Only cells
+        // entered at or after `free_until` of a hit come here.
+        let exact = ExactCell {
+            model: &plan.model,
+            res,
+            ex0,
+            ey0,
+            z,
         };
-        let free_sq = if fb > 0.0 { fb * fb } else { -1.0 };
-        let exact = |col: i64, row: i64| -> f32 {
-            let ex = col as f64 * res + ex0;
-            let ey = row as f64 * res + ey0;
-            let d2 = ex * ex + ey * ey;
-            if !hit || d2 < free_sq {
-                free
-            } else {
-                plan.model.hit_increment(d2.sqrt(), z) as f32
-            }
-        };
+        debug_assert!(
+            hit || free_until == i64::MAX,
+            "a no-return is free all the way"
+        );
         let ahead = |x: i64, limit: i64, step: i64| (x - limit) * step >= 0;
         let ratio = walk.cols_per_row();
         if ratio >= RUN_RATIO {
@@ -288,7 +288,7 @@ impl MapBuilder {
                 }
                 let mut col = free_last + sc;
                 while ahead(last, col, sc) && col >= c0 && col < c1 {
-                    sink.cell((row_base + col) as usize, exact(col, c.row));
+                    sink.cell((row_base + col) as usize, exact.increment(col, c.row));
                     col += sc;
                 }
                 // Past the tile's columns the walk never comes back.
@@ -349,7 +349,7 @@ impl MapBuilder {
                 }
                 let mut row = free_last + sr;
                 while ahead(last, row, sr) && row >= r0 && row < r1 {
-                    sink.cell((row * w + c.col) as usize, exact(c.col, row));
+                    sink.cell((row * w + c.col) as usize, exact.increment(c.col, row));
                     row += sr;
                 }
                 if !(r0..r1).contains(&last) {
@@ -366,34 +366,59 @@ impl MapBuilder {
                 }
             }
         } else {
-            // Near the diagonal stretches are short: walk cell by cell, stepping the integer
-            // crossing parameters by addition.
-            let (mut tc, mut tr) = (walk.leave_col(c.col), walk.leave_row(c.row));
+            // Near the diagonal stretches are short: walk cell by cell. How many cells the walk
+            // takes inside the tile, and how many of them are entered before `free_until`, are
+            // counted first (exact integer division), so the loops below run a known number of
+            // times with no test of the tile, the length or the free zone per cell.
+            let (tc, tr) = (walk.leave_col(c.col), walk.leave_row(c.row));
             let (ca, ra) = (walk.col_step(), walk.row_step());
-            let (di_col, di_row) = (sc as isize, (sr * w) as isize);
-            let mut i = (c.row * w + c.col) as isize;
-            loop {
-                let inc = if t_enter < free_until {
-                    free
-                } else {
-                    exact(c.col, c.row)
-                };
-                sink.cell(i as usize, inc);
-                // Branch-free step: which axis is crossed first is unpredictable near the
-                // diagonal, so both candidates are computed and one is selected.
-                let x = tc < tr;
-                let t = if x { tc } else { tr };
-                if t >= walk.len {
-                    return;
-                }
-                t_enter = t;
-                c.col += if x { sc } else { 0 };
-                c.row += if x { 0 } else { sr };
-                i += if x { di_col } else { di_row };
-                tc += if x { ca } else { 0 };
-                tr += if x { 0 } else { ra };
-                if c.col < c0 || c.col >= c1 || c.row < r0 || c.row >= r1 {
-                    return;
+            // Column (row) crossings left before the walk would step out of the tile, and the
+            // parameter of that stepping out.
+            let kc = if sc > 0 { c1 - 1 - c.col } else { c.col - c0 };
+            let kr = if sr > 0 { r1 - 1 - c.row } else { c.row - r0 };
+            let (out_c, out_r) = (tc + kc * ca, tr + kr * ra);
+            // A column crossing is taken below the length and strictly before the row exit (at a
+            // tie the row step comes first); a row crossing below the length and at or before
+            // the column exit.
+            let n_col = kc.min(crossings_before(tc, ca, walk.len.min(out_r)));
+            let n_row = kr.min(crossings_before(tr, ra, walk.len.min(out_c + 1)));
+            let total = 1 + n_col + n_row;
+            let n_free = if t_enter < free_until {
+                1 + n_col.min(crossings_before(tc, ca, free_until))
+                    + n_row.min(crossings_before(tr, ra, free_until))
+            } else {
+                0
+            };
+            let mut step = DiagonalStep {
+                i: (c.row * w + c.col) as isize,
+                tc,
+                tr,
+                ca,
+                ra,
+                di_col: sc as isize,
+                di_row: (sr * w) as isize,
+            };
+            let in_tile = |i: isize| {
+                let (col, row) = (i as i64 % w, i as i64 / w);
+                i >= 0 && (c0..c1).contains(&col) && (r0..r1).contains(&row)
+            };
+            for _ in 0..n_free {
+                debug_assert!(in_tile(step.i), "free cell outside the tile");
+                sink.cell(step.i as usize, free);
+                step.advance();
+            }
+            if n_free < total {
+                // Where the free prefix left the walk: columns crossed so far, from the
+                // column parameter (it grows by exactly `ca` per column step).
+                let cols = (step.tc - tc) / ca;
+                let rows = n_free - cols;
+                let (mut col, mut row) = (c.col + cols * sc, c.row + rows * sr);
+                for _ in n_free..total {
+                    debug_assert!(in_tile(step.i), "exact cell outside the tile");
+                    sink.cell(step.i as usize, exact.increment(col, row));
+                    let x = step.advance();
+                    col += if x { sc } else { 0 };
+                    row += if x { 0 } else { sr };
                 }
             }
         }
@@ -416,6 +441,7 @@ impl MapBuilder {
                 let plan = &self.plans[sensor as usize];
                 self.ray_in_tile(plan, walk, ex0, ey0, z, hit, free_until, tile, sink);
             }
+            Job::Skipped => {}
             Job::Cone {
                 sensor,
                 origin,
@@ -446,7 +472,7 @@ impl MapBuilder {
     }
 
     /// Applies one tile's share of a chunk: `list` holds, in order, the jobs that can reach the
-    /// tile; `frame_ends[k]` is the end of frame k's jobs.
+    /// tile; `frame_ends[k]` is the end of frame k's job slots.
     ///
     /// # Safety
     /// `cells` must point at the grid's values, and no other thread may touch cells of `tile`
@@ -509,18 +535,6 @@ impl MapBuilder {
             (w * h) as usize,
             "values of this builder's grid"
         );
-        let side = if parallel { TILE } else { w.max(h) };
-        let (tw, th) = ((w + side - 1) / side, (h + side - 1) / side);
-        let tiles: Vec<Tile> = (0..th)
-            .flat_map(|ty| {
-                (0..tw).map(move |tx| Tile {
-                    r0: ty * side,
-                    r1: ((ty + 1) * side).min(h),
-                    c0: tx * side,
-                    c1: ((tx + 1) * side).min(w),
-                })
-            })
-            .collect();
         let cells = Cells(values.as_mut_ptr());
         // The frames of each chunk: about CHUNK_BEAMS beams.
         let mut chunks: Vec<Range<usize>> = Vec::new();
@@ -529,65 +543,124 @@ impl MapBuilder {
             let mut end = f;
             let mut beams = 0;
             while end < frames.end && (end == f || beams < CHUNK_BEAMS) {
-                beams += self.session.frames[end]
-                    .scans
-                    .iter()
-                    .map(|s| self.session.sensors[s.sensor].beam_count())
-                    .sum::<usize>();
+                beams += self.frame_slots(end);
                 end += 1;
             }
             chunks.push(f..end);
             f = end;
         }
-        // Prepares a chunk: its jobs, frame ends and per-tile job lists (in order).
+        // Whether a job's reach meets the grid at all.
+        let meets_grid =
+            |(a, b): (CellIndex, CellIndex)| b.col >= 0 && b.row >= 0 && a.col < w && a.row < h;
+        if !parallel {
+            // One thread, one tile: each frame's jobs are prepared into one reused buffer and
+            // applied at once, with no chunk to store.
+            let whole = Tile {
+                r0: 0,
+                r1: h,
+                c0: 0,
+                c1: w,
+            };
+            let (mut jobs, mut list) = (Vec::new(), Vec::new());
+            let mut scratch = CellMap::default();
+            for range in &chunks {
+                for f in range.clone() {
+                    let slots = self.frame_slots(f);
+                    if jobs.len() < slots {
+                        jobs.resize(slots, Job::Skipped);
+                    }
+                    let n = self.fill_frame_jobs(f, &mut jobs);
+                    list.clear();
+                    list.extend(
+                        (0..n as u32).filter(|&j| jobs[j as usize].reach().is_some_and(meets_grid)),
+                    );
+                    // SAFETY: one task owns the whole grid.
+                    unsafe { self.run_tile(&list, &[n], &jobs, whole, cells, &mut scratch) };
+                }
+                if !after_chunk(range.end - frames.start) {
+                    return;
+                }
+            }
+            return;
+        }
+        let (tw, th) = ((w + TILE - 1) / TILE, (h + TILE - 1) / TILE);
+        let tiles: Vec<Tile> = (0..th)
+            .flat_map(|ty| {
+                (0..tw).map(move |tx| Tile {
+                    r0: ty * TILE,
+                    r1: ((ty + 1) * TILE).min(h),
+                    c0: tx * TILE,
+                    c1: ((tx + 1) * TILE).min(w),
+                })
+            })
+            .collect();
+        // Prepares a chunk: every frame writes its jobs into its own slots, in parallel; then
+        // each tile gets the list, in order, of the jobs that can reach it.
         let fill = |range: Range<usize>, c: &mut Chunk| {
-            self.prepare(range, &mut c.jobs, &mut c.frame_ends);
+            c.slot_ends.clear();
+            let mut total = 0;
+            for f in range.clone() {
+                total += self.frame_slots(f);
+                c.slot_ends.push(total);
+            }
+            if c.jobs.len() < total {
+                c.jobs.resize(total, Job::Skipped);
+            }
+            let mut slices = Vec::with_capacity(range.len());
+            let mut rest = &mut c.jobs[..total];
+            let mut at = 0;
+            for &end in &c.slot_ends {
+                let (mine, others) = rest.split_at_mut(end - at);
+                slices.push(mine);
+                rest = others;
+                at = end;
+            }
+            range
+                .into_par_iter()
+                .zip(slices.into_par_iter())
+                .map(|(f, out)| self.fill_frame_jobs(f, out))
+                .collect_into_vec(&mut c.counts);
             c.lists.resize_with(tiles.len(), Vec::new);
             c.lists.iter_mut().for_each(Vec::clear);
-            for (j, job) in c.jobs.iter().enumerate() {
-                let (a, b) = job.reach();
-                if b.col < 0 || b.row < 0 || a.col >= w || a.row >= h {
-                    continue;
-                }
-                let (tx0, tx1) = (a.col.max(0) / side, b.col.min(w - 1) / side);
-                let (ty0, ty1) = (a.row.max(0) / side, b.row.min(h - 1) / side);
-                for ty in ty0..=ty1 {
-                    for tx in tx0..=tx1 {
-                        c.lists[(ty * tw + tx) as usize].push(j as u32);
+            for (k, &n) in c.counts.iter().enumerate() {
+                let first = if k == 0 { 0 } else { c.slot_ends[k - 1] };
+                for j in first..first + n {
+                    let Some((a, b)) = c.jobs[j].reach().filter(|&r| meets_grid(r)) else {
+                        continue;
+                    };
+                    let (tx0, tx1) = (a.col.max(0) / TILE, b.col.min(w - 1) / TILE);
+                    let (ty0, ty1) = (a.row.max(0) / TILE, b.row.min(h - 1) / TILE);
+                    for ty in ty0..=ty1 {
+                        for tx in tx0..=tx1 {
+                            c.lists[(ty * tw + tx) as usize].push(j as u32);
+                        }
                     }
                 }
             }
         };
-        // Runs a prepared chunk on its tiles.
+        // Runs a prepared chunk on its tiles, in parallel.
         let apply = |c: &Chunk| {
-            let run = |(tile, list): (&Tile, &Vec<u32>), scratch: &mut CellMap<Strongest>| {
-                if !list.is_empty() {
-                    // SAFETY: tiles are disjoint and each is run by exactly one task below.
-                    unsafe { self.run_tile(list, &c.frame_ends, &c.jobs, *tile, cells, scratch) };
-                }
-            };
-            if tiles.len() == 1 {
-                run((&tiles[0], &c.lists[0]), &mut CellMap::default());
-            } else {
-                tiles
-                    .par_iter()
-                    .zip(c.lists.par_iter())
-                    .with_max_len(1)
-                    .for_each_init(CellMap::default, |scratch, t| run(t, scratch));
-            }
+            tiles
+                .par_iter()
+                .zip(c.lists.par_iter())
+                .with_max_len(1)
+                .for_each_init(CellMap::default, |scratch, (tile, list)| {
+                    if !list.is_empty() {
+                        // SAFETY: tiles are disjoint and each is run by exactly one task.
+                        unsafe {
+                            self.run_tile(list, &c.slot_ends, &c.jobs, *tile, cells, scratch)
+                        };
+                    }
+                });
         };
         let (mut current, mut next) = (Chunk::default(), Chunk::default());
         let Some(first) = chunks.first() else { return };
         fill(first.clone(), &mut current);
         for k in 0..chunks.len() {
-            // Apply chunk k while chunk k + 1 is prepared (when running in parallel).
+            // Apply chunk k while chunk k + 1 is prepared.
             match chunks.get(k + 1) {
-                Some(r) if parallel => {
-                    rayon::join(|| apply(&current), || fill(r.clone(), &mut next));
-                }
                 Some(r) => {
-                    apply(&current);
-                    fill(r.clone(), &mut next);
+                    rayon::join(|| apply(&current), || fill(r.clone(), &mut next));
                 }
                 None => apply(&current),
             }
@@ -599,12 +672,60 @@ impl MapBuilder {
     }
 }
 
-/// A prepared chunk of frames: jobs in order, the end of each frame's jobs, and each tile's
-/// list of jobs that can reach it.
+/// The exact increment of a cell for one hit beam: the distance from the beam origin to the
+/// cell's centre, then the model.
+struct ExactCell<'a> {
+    model: &'a crate::model::PreparedModel,
+    res: f64,
+    ex0: f64,
+    ey0: f64,
+    z: f64,
+}
+
+impl ExactCell<'_> {
+    #[inline(always)]
+    fn increment(&self, col: i64, row: i64) -> f32 {
+        let ex = col as f64 * self.res + self.ex0;
+        let ey = row as f64 * self.res + self.ey0;
+        self.model.hit_increment((ex * ex + ey * ey).sqrt(), self.z) as f32
+    }
+}
+
+/// The state of a cell-by-cell walk near the diagonal: the grid index of the current cell and
+/// the integer parameters at which the walk leaves its column and its row.
+struct DiagonalStep {
+    i: isize,
+    tc: i64,
+    tr: i64,
+    ca: i64,
+    ra: i64,
+    di_col: isize,
+    di_row: isize,
+}
+
+impl DiagonalStep {
+    /// Steps to the next cell (the column when it is left first, else the row: the walk's own
+    /// rule) and says whether that was a column step. Written with masks rather than branches:
+    /// near the diagonal which axis comes next is unpredictable.
+    #[inline(always)]
+    fn advance(&mut self) -> bool {
+        // All ones when the column is left first.
+        let m = (self.tc - self.tr) >> 63;
+        self.i += self.di_row + ((self.di_col - self.di_row) & m as isize);
+        self.tc += self.ca & m;
+        self.tr += self.ra & !m;
+        m != 0
+    }
+}
+
+/// A prepared chunk of frames: job slots (frame k owns slots `slot_ends[k - 1]..slot_ends[k]`
+/// and fills the first `counts[k]` of them), and each tile's list of jobs that can reach it,
+/// in order. The buffers are reused from chunk to chunk.
 #[derive(Default)]
 struct Chunk {
     jobs: Vec<Job>,
-    frame_ends: Vec<usize>,
+    slot_ends: Vec<usize>,
+    counts: Vec<usize>,
     lists: Vec<Vec<u32>>,
 }
 

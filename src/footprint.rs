@@ -51,12 +51,8 @@ pub struct RayWalk {
     pub step_col: i64,
     /// Row step, -1, 0 or +1.
     pub step_row: i64,
-    /// Segment length, metres.
-    pub length: f64,
     /// Segment length, fixed point: cells entered at or past it are not touched.
     pub len: i64,
-    /// Unit direction (x, y).
-    dir: (f64, f64),
     /// Fixed-point parameter at which the segment leaves the start column, and the increase
     /// per column step ([`NEVER`] when it has no column step); likewise for rows.
     col_first: i64,
@@ -71,14 +67,6 @@ impl RayWalk {
     pub fn new(spec: &GridSpec, origin: Point2, heading: f64, length: f64) -> RayWalk {
         let (dy, dx) = heading.sin_cos();
         Self::from_direction(spec, origin, dx, dy, length)
-    }
-
-    /// The end point of the segment, metres (from the same direction the walk uses).
-    pub fn end(&self, origin: Point2) -> Point2 {
-        Point2::new(
-            origin.x + self.length * self.dir.0,
-            origin.y + self.length * self.dir.1,
-        )
     }
 
     /// As [`RayWalk::new`], with a unit direction vector `(dx, dy)`.
@@ -110,9 +98,7 @@ impl RayWalk {
             start,
             step_col,
             step_row,
-            length,
             len: param(length),
-            dir: (dx, dy),
             col_first,
             col_step,
             row_first,

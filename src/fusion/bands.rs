@@ -29,6 +29,7 @@ use crate::params::FusionRule;
 use crate::session::{Reading, SensorKind};
 use rayon::prelude::*;
 use std::ops::Range;
+use std::sync::atomic::{AtomicUsize, Ordering};
 
 /// Slightly more than sqrt(2)/2 (by 3e-6): how far a cell's centre can be from a point inside
 /// the cell, in cells, with room for rounding.
@@ -39,10 +40,10 @@ const CENTRE_REACH: f64 = std::f64::consts::FRAC_1_SQRT_2 + 3e-6;
 const RUN_RATIO: f64 = 3.0;
 
 /// Side of a tile, cells, when running in parallel.
-const TILE: i64 = 128;
+const TILE: i64 = 256;
 
 /// Beams prepared per chunk (bounds memory; a chunk is shared by all tiles).
-const CHUNK_BEAMS: usize = 1 << 18;
+const CHUNK_BEAMS: usize = 1 << 17;
 
 /// One beam, ready for the inner loop.
 #[derive(Clone, Copy, Debug)]
@@ -58,8 +59,6 @@ enum Job {
         hit: bool,
         /// Cells entered before this fixed-point parameter get exactly logit(p_free).
         free_until: i64,
-        /// Cells the beam can reach: (min, max) corners, inclusive.
-        reach: (CellIndex, CellIndex),
     },
     Cone {
         sensor: u32,
@@ -67,21 +66,17 @@ enum Job {
         heading: f64,
         reach_m: f64,
         reading: Reading,
-        reach: (CellIndex, CellIndex),
     },
     /// A slot a frame left unused (a beam that touches nothing); never listed for a tile.
     Skipped,
 }
 
-impl Job {
-    /// The cells the job can reach, `None` for a skipped slot.
-    fn reach(&self) -> Option<(CellIndex, CellIndex)> {
-        match self {
-            Job::Ray { reach, .. } | Job::Cone { reach, .. } => Some(*reach),
-            Job::Skipped => None,
-        }
-    }
-}
+/// The cells a job can reach: (min, max) corners, inclusive. Kept beside the jobs rather than
+/// in them, so that listing jobs per tile reads little memory.
+type Reach = (CellIndex, CellIndex);
+
+/// The reach of an unused slot: no cell.
+const NO_REACH: Reach = (CellIndex { col: 0, row: 0 }, CellIndex { col: -1, row: -1 });
 
 /// A rectangle of cells: rows `r0..r1`, columns `c0..c1`.
 #[derive(Clone, Copy, Debug)]
@@ -112,9 +107,10 @@ impl MapBuilder {
             .sum()
     }
 
-    /// Writes the jobs of frame `f`, in the contract's order, to the front of `out` (at least
-    /// [`MapBuilder::frame_slots`] long) and returns how many there are.
-    fn fill_frame_jobs(&self, f: usize, out: &mut [Job]) -> usize {
+    /// Writes the jobs of frame `f`, in the contract's order, to the front of `out` and their
+    /// reaches to the front of `reaches` (both at least [`MapBuilder::frame_slots`] long), and
+    /// returns how many there are.
+    fn fill_frame_jobs(&self, f: usize, out: &mut [Job], reaches: &mut [Reach]) -> usize {
         let mut n = 0;
         let spec = &self.spec;
         let res = spec.resolution;
@@ -129,8 +125,9 @@ impl MapBuilder {
             let s = b.sensor as u32;
             match b.plan.kind {
                 SensorKind::Ray => {
-                    let walk = RayWalk::new(spec, b.origin, b.heading, b.reach);
-                    let end = walk.end(b.origin);
+                    let (dy, dx) = b.heading.sin_cos();
+                    let walk = RayWalk::from_direction(spec, b.origin, dx, dy, b.reach);
+                    let end = Point2::new(b.origin.x + b.reach * dx, b.origin.y + b.reach * dy);
                     let (z, hit, free_until) = match b.reading {
                         // Rounding to fixed point moves this by 1e-12 m, far inside the margin
                         // of CENTRE_REACH over sqrt(2)/2 (1.5e-7 m at 5 cm cells).
@@ -149,8 +146,8 @@ impl MapBuilder {
                         z,
                         hit,
                         free_until,
-                        reach: widen(walk.start, spec.cell_at(end)),
                     };
+                    reaches[n] = widen(walk.start, spec.cell_at(end));
                     n += 1;
                 }
                 SensorKind::Cone => {
@@ -166,8 +163,8 @@ impl MapBuilder {
                         heading: b.heading,
                         reach_m: b.reach,
                         reading: b.reading,
-                        reach: widen(spec.cell_at(bounds.min), spec.cell_at(bounds.max)),
                     };
+                    reaches[n] = widen(spec.cell_at(bounds.min), spec.cell_at(bounds.max));
                     n += 1;
                 }
             }
@@ -561,19 +558,18 @@ impl MapBuilder {
                 c0: 0,
                 c1: w,
             };
-            let (mut jobs, mut list) = (Vec::new(), Vec::new());
+            let (mut jobs, mut reaches, mut list) = (Vec::new(), Vec::new(), Vec::new());
             let mut scratch = CellMap::default();
             for range in &chunks {
                 for f in range.clone() {
                     let slots = self.frame_slots(f);
                     if jobs.len() < slots {
                         jobs.resize(slots, Job::Skipped);
+                        reaches.resize(slots, NO_REACH);
                     }
-                    let n = self.fill_frame_jobs(f, &mut jobs);
+                    let n = self.fill_frame_jobs(f, &mut jobs, &mut reaches);
                     list.clear();
-                    list.extend(
-                        (0..n as u32).filter(|&j| jobs[j as usize].reach().is_some_and(meets_grid)),
-                    );
+                    list.extend((0..n as u32).filter(|&j| meets_grid(reaches[j as usize])));
                     // SAFETY: one task owns the whole grid.
                     unsafe { self.run_tile(&list, &[n], &jobs, whole, cells, &mut scratch) };
                 }
@@ -605,29 +601,32 @@ impl MapBuilder {
             }
             if c.jobs.len() < total {
                 c.jobs.resize(total, Job::Skipped);
+                c.reaches.resize(total, NO_REACH);
             }
             let mut slices = Vec::with_capacity(range.len());
-            let mut rest = &mut c.jobs[..total];
+            let (mut jobs, mut reaches) = (&mut c.jobs[..total], &mut c.reaches[..total]);
             let mut at = 0;
             for &end in &c.slot_ends {
-                let (mine, others) = rest.split_at_mut(end - at);
-                slices.push(mine);
-                rest = others;
+                let (mine, others) = jobs.split_at_mut(end - at);
+                let (my_reaches, other_reaches) = reaches.split_at_mut(end - at);
+                slices.push((mine, my_reaches));
+                (jobs, reaches) = (others, other_reaches);
                 at = end;
             }
             range
                 .into_par_iter()
                 .zip(slices.into_par_iter())
-                .map(|(f, out)| self.fill_frame_jobs(f, out))
+                .map(|(f, (out, reaches))| self.fill_frame_jobs(f, out, reaches))
                 .collect_into_vec(&mut c.counts);
             c.lists.resize_with(tiles.len(), Vec::new);
             c.lists.iter_mut().for_each(Vec::clear);
             for (k, &n) in c.counts.iter().enumerate() {
                 let first = if k == 0 { 0 } else { c.slot_ends[k - 1] };
                 for j in first..first + n {
-                    let Some((a, b)) = c.jobs[j].reach().filter(|&r| meets_grid(r)) else {
+                    let (a, b) = c.reaches[j];
+                    if !meets_grid((a, b)) {
                         continue;
-                    };
+                    }
                     let (tx0, tx1) = (a.col.max(0) / TILE, b.col.min(w - 1) / TILE);
                     let (ty0, ty1) = (a.row.max(0) / TILE, b.row.min(h - 1) / TILE);
                     for ty in ty0..=ty1 {
@@ -638,17 +637,30 @@ impl MapBuilder {
                 }
             }
         };
-        // Runs a prepared chunk on its tiles, in parallel.
+        // Runs a prepared chunk on its tiles, in parallel. The tiles with the longest lists
+        // go first and each thread takes the next tile when it is free (so the chunk does not
+        // end waiting on one busy tile that started late).
         let apply = |c: &Chunk| {
-            tiles
-                .par_iter()
-                .zip(c.lists.par_iter())
-                .with_max_len(1)
-                .for_each_init(CellMap::default, |scratch, (tile, list)| {
-                    if !list.is_empty() {
-                        // SAFETY: tiles are disjoint and each is run by exactly one task.
+            let mut order: Vec<usize> = (0..tiles.len())
+                .filter(|&t| !c.lists[t].is_empty())
+                .collect();
+            order.sort_by_key(|&t| std::cmp::Reverse(c.lists[t].len()));
+            let taken = AtomicUsize::new(0);
+            (0..rayon::current_num_threads())
+                .into_par_iter()
+                .for_each(|_| {
+                    let mut scratch = CellMap::default();
+                    while let Some(&t) = order.get(taken.fetch_add(1, Ordering::Relaxed)) {
+                        // SAFETY: tiles are disjoint and each is taken by exactly one thread.
                         unsafe {
-                            self.run_tile(list, &c.slot_ends, &c.jobs, *tile, cells, scratch)
+                            self.run_tile(
+                                &c.lists[t],
+                                &c.slot_ends,
+                                &c.jobs,
+                                tiles[t],
+                                cells,
+                                &mut scratch,
+                            )
                         };
                     }
                 });
@@ -718,12 +730,13 @@ impl DiagonalStep {
     }
 }
 
-/// A prepared chunk of frames: job slots (frame k owns slots `slot_ends[k - 1]..slot_ends[k]`
-/// and fills the first `counts[k]` of them), and each tile's list of jobs that can reach it,
+/// A prepared chunk of frames: job slots and their reaches (frame k owns slots
+/// `slot_ends[k - 1]..slot_ends[k]` and fills the first `counts[k]` of them), and each tile's list of jobs that can reach it,
 /// in order. The buffers are reused from chunk to chunk.
 #[derive(Default)]
 struct Chunk {
     jobs: Vec<Job>,
+    reaches: Vec<Reach>,
     slot_ends: Vec<usize>,
     counts: Vec<usize>,
     lists: Vec<Vec<u32>>,

@@ -329,6 +329,7 @@ fn parse_point(s: &str) -> Result<(f64, f64), String> {
 }
 
 fn main() -> ExitCode {
+    gridscope::grid::keep_freed_buffers();
     let cli = Cli::parse();
     match run(cli) {
         Ok(()) => ExitCode::SUCCESS,

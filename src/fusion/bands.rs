@@ -382,11 +382,15 @@ impl MapBuilder {
             let n_col = kc.min(crossings_before(tc, ca, walk.len.min(out_r)));
             let n_row = kr.min(crossings_before(tr, ra, walk.len.min(out_c + 1)));
             let total = 1 + n_col + n_row;
-            let n_free = if t_enter < free_until {
+            let n_free = if t_enter >= free_until {
+                0
+            } else if free_until >= walk.len.min(out_r).max(walk.len.min(out_c + 1)) {
+                // Every crossing taken lies below free_until (the usual case in a tile the
+                // beam only passes through).
+                total
+            } else {
                 1 + n_col.min(crossings_before(tc, ca, free_until))
                     + n_row.min(crossings_before(tr, ra, free_until))
-            } else {
-                0
             };
             let mut step = DiagonalStep {
                 i: (c.row * w + c.col) as isize,

@@ -413,6 +413,46 @@ pub fn cone_bounds(origin: Point2, heading: f64, width: f64, reach: f64) -> Worl
 mod tests {
     use super::*;
 
+    /// Counting crossings ahead by division gives what a walk finds by stepping: for segments
+    /// in every direction and limits at, between and beyond crossings, the number of column
+    /// (row) steps a walk from the origin takes before a parameter equals `crossings_before`.
+    /// Counting by stepping is the check; the angles and limits are arbitrary.
+    #[test]
+    fn crossings_counted_ahead_match_the_walk() {
+        let spec = unit_grid(64, 64);
+        for k in 0..72 {
+            let heading = k as f64 * 0.0873 + 0.01;
+            let w = RayWalk::new(&spec, Point2::new(32.3, 31.7), heading, 25.0);
+            // Parameters at which the walk enters each cell, and whether by a column step.
+            let mut entries = Vec::new();
+            let mut prev = w.start;
+            w.for_each_entered(|c, t| {
+                if c != w.start {
+                    entries.push((t, c.col != prev.col));
+                }
+                prev = c;
+                true
+            });
+            for &(limit, _) in &entries {
+                for t in [limit - 1, limit, limit + 1, w.len, i64::MAX] {
+                    let cols = entries.iter().filter(|e| e.1 && e.0 < t).count() as i64;
+                    let rows = entries.iter().filter(|e| !e.1 && e.0 < t).count() as i64;
+                    let t_walk = t.min(w.len);
+                    if w.step_col != 0 {
+                        let counted =
+                            crossings_before(w.leave_col(w.start.col), w.col_step(), t_walk);
+                        assert_eq!(counted, cols, "heading {heading}, t {t}: columns");
+                    }
+                    if w.step_row != 0 {
+                        let counted =
+                            crossings_before(w.leave_row(w.start.row), w.row_step(), t_walk);
+                        assert_eq!(counted, rows, "heading {heading}, t {t}: rows");
+                    }
+                }
+            }
+        }
+    }
+
     fn unit_grid(w: u32, h: u32) -> GridSpec {
         GridSpec {
             resolution: 1.0,

@@ -9,16 +9,23 @@
 //! parameters are computed from cell indices. Tiles rather than row bands, because a robot in
 //! a corridor puts most of a chunk's work into a few rows.
 //!
-//! Three things make the inner loop cheap without changing a single bit of the result:
+//! On one thread there is a single tile, the whole grid, and each frame's beams are prepared
+//! and applied at once, while they are in cache.
+//!
+//! What makes the inner loop cheap without changing a single bit of the result:
 //! - a beam touches each cell once, so within a beam the order of its cells does not matter;
-//!   beams that run mostly along one axis are applied as stretches of consecutive cells in a
-//!   row (or column), found with one comparison per row rather than one per cell;
+//!   beams that run within a few degrees of an axis are applied as stretches of consecutive
+//!   cells in a row (or column), found with one comparison per row rather than one per cell;
+//! - the others are walked cell by cell with a known count: how many cells the walk takes in
+//!   the tile, and how many of them are free (below), are found ahead by integer division, so
+//!   the loop steps with masks and tests nothing per cell;
 //! - most cells of a hit beam lie well in front of the reading, where every model gives exactly
 //!   logit(p_free). A cell entered at parameter t has its centre within res * sqrt(2)/2 of the
 //!   entry point, so while t + res * 0.70711 is below the model's free zone the increment is that
 //!   constant and neither the distance to the centre nor the table is needed;
-//! - beams are prepared once per chunk (origin, direction, traversal constants, the cells they
-//!   can reach) and shared by all tiles.
+//! - on several threads, beams are prepared once per chunk (origin, direction, traversal
+//!   constants, the cells they can reach) and shared by all tiles; the tiles with the most
+//!   beams go first to whichever thread is free.
 
 use super::{CellMap, MapBuilder, SensorPlan, Strongest};
 use crate::footprint::{RayWalk, crossings_before, for_each_cone_cell, param};
@@ -56,10 +63,10 @@ enum Job {
         /// Offsets giving the vector from the origin to cell (c, r)'s centre: c * res + ex0.
         ex0: f64,
         ey0: f64,
-        /// The reading, metres (a no-return is cleared as free all the way).
+        /// The reading, metres (unused for a no-return).
         z: f64,
-        hit: bool,
-        /// Cells entered before this fixed-point parameter get exactly logit(p_free).
+        /// Cells entered before this fixed-point parameter get exactly logit(p_free); i64::MAX
+        /// for a cleared no-return, free all the way.
         free_until: i64,
     },
     Cone {
@@ -130,15 +137,13 @@ impl MapBuilder {
                     let (dy, dx) = b.heading.sin_cos();
                     let walk = RayWalk::from_direction(spec, b.origin, dx, dy, b.reach);
                     let end = Point2::new(b.origin.x + b.reach * dx, b.origin.y + b.reach * dy);
-                    let (z, hit, free_until) = match b.reading {
+                    let (z, free_until) = match b.reading {
                         // Rounding to fixed point moves this by 1e-12 m, far inside the margin
                         // of CENTRE_REACH over sqrt(2)/2 (1.5e-7 m at 5 cm cells).
-                        Reading::Hit(z) => (
-                            z,
-                            true,
-                            param(b.plan.model.free_below(z) - res * CENTRE_REACH),
-                        ),
-                        _ => (0.0, false, i64::MAX),
+                        Reading::Hit(z) => {
+                            (z, param(b.plan.model.free_below(z) - res * CENTRE_REACH))
+                        }
+                        _ => (0.0, i64::MAX),
                     };
                     out[n] = Job::Ray {
                         sensor: s,
@@ -146,7 +151,6 @@ impl MapBuilder {
                         ex0: spec.origin.x + 0.5 * res - b.origin.x,
                         ey0: spec.origin.y + 0.5 * res - b.origin.y,
                         z,
-                        hit,
                         free_until,
                     };
                     reaches[n] = widen(walk.start, spec.cell_at(end));
@@ -186,7 +190,6 @@ impl MapBuilder {
         ex0: f64,
         ey0: f64,
         z: f64,
-        hit: bool,
         free_until: i64,
         tile: Tile,
         sink: &mut impl Sink,
@@ -241,7 +244,7 @@ impl MapBuilder {
         }
         let free = plan.model.free_increment() as f32;
         // The exact increment of one cell (what the plain loop computes for it). Only cells
-        // entered at or after `free_until` of a hit come here.
+        // entered at or after `free_until` come here, so only those of a hit.
         let exact = ExactCell {
             model: &plan.model,
             res,
@@ -249,10 +252,6 @@ impl MapBuilder {
             ey0,
             z,
         };
-        debug_assert!(
-            hit || free_until == i64::MAX,
-            "a no-return is free all the way"
-        );
         let ahead = |x: i64, limit: i64, step: i64| (x - limit) * step >= 0;
         let ratio = walk.cols_per_row();
         if ratio >= RUN_RATIO {
@@ -437,12 +436,11 @@ impl MapBuilder {
                 ex0,
                 ey0,
                 z,
-                hit,
                 free_until,
                 ..
             } => {
                 let plan = &self.plans[sensor as usize];
-                self.ray_in_tile(plan, walk, ex0, ey0, z, hit, free_until, tile, sink);
+                self.ray_in_tile(plan, walk, ex0, ey0, z, free_until, tile, sink);
             }
             Job::Skipped => {}
             Job::Cone {

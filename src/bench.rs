@@ -4,9 +4,9 @@
 //! a plain streaming read-modify-write over a grid of the same size, one cell at a time (the
 //! memory floor as a cell update meets it; the same pass in vector instructions is reported
 //! beside it), the full rebuild on one thread and on all threads (and whether the two grids
-//! are identical bit for bit), seeks of the window's replay engine to random frames, and loading the session's
-//! ranges from the packed (NumPy) layout against parsing them from RON. Each timing is the
-//! median of several repetitions. Speed targets belong here, never in tests.
+//! are identical bit for bit), seeks of the window's replay engine to random frames, and
+//! loading the session's ranges from the packed (NumPy) layout against parsing them from RON.
+//! Each timing is the median of several repetitions. Speed targets belong here, never in tests.
 
 use crate::error::Error;
 use crate::fusion::MapBuilder;

@@ -414,9 +414,9 @@ mod tests {
     use super::*;
 
     /// Counting crossings ahead by division gives what a walk finds by stepping: for segments
-    /// in every direction and limits at, between and beyond crossings, the number of column
-    /// (row) steps a walk from the origin takes before a parameter equals `crossings_before`.
-    /// Counting by stepping is the check; the angles and limits are arbitrary.
+    /// in every direction and limits just before, at and just after each crossing (and at the
+    /// length, and unlimited), the column (row) steps the walk takes below the limit number
+    /// `crossings_before`. The walk itself is the reference; headings and origin are arbitrary.
     #[test]
     fn crossings_counted_ahead_match_the_walk() {
         let spec = unit_grid(64, 64);

@@ -735,8 +735,8 @@ impl DiagonalStep {
 }
 
 /// A prepared chunk of frames: job slots and their reaches (frame k owns slots
-/// `slot_ends[k - 1]..slot_ends[k]` and fills the first `counts[k]` of them), and each tile's list of jobs that can reach it,
-/// in order. The buffers are reused from chunk to chunk.
+/// `slot_ends[k - 1]..slot_ends[k]` and fills the first `counts[k]` of them), and each tile's
+/// list, in order, of the jobs that can reach it. The buffers are reused from chunk to chunk.
 #[derive(Default)]
 struct Chunk {
     jobs: Vec<Job>,

@@ -281,7 +281,7 @@ impl MapBuilder {
                         c.col.max(free_last).min(c1 - 1),
                     );
                     if a <= b {
-                        sink.run((row_base + a) as usize, 1, (b - a + 1) as usize, free);
+                        sink.free_run((row_base + a) as usize, 1, (b - a + 1) as usize, free);
                     }
                 }
                 let mut col = free_last + sc;
@@ -337,7 +337,7 @@ impl MapBuilder {
                         c.row.max(free_last).min(r1 - 1),
                     );
                     if a <= b {
-                        sink.run(
+                        sink.free_run(
                             (a * w + c.col) as usize,
                             w as usize,
                             (b - a + 1) as usize,
@@ -393,8 +393,7 @@ impl MapBuilder {
             };
             let mut step = DiagonalStep {
                 i: (c.row * w + c.col) as isize,
-                tc,
-                tr,
+                e: tc - tr,
                 ca,
                 ra,
                 di_col: sc as isize,
@@ -406,13 +405,14 @@ impl MapBuilder {
             };
             for _ in 0..n_free {
                 debug_assert!(in_tile(step.i), "free cell outside the tile");
-                sink.cell(step.i as usize, free);
+                sink.free_cell(step.i as usize, free);
                 step.advance();
             }
             if n_free < total {
-                // Where the free prefix left the walk: columns crossed so far, from the
-                // column parameter (it grows by exactly `ca` per column step).
-                let cols = (step.tc - tc) / ca;
+                // Where the free prefix left the walk: after `cols` column steps and
+                // n_free - cols row steps the difference of the two parameters has grown by
+                // cols * ca - (n_free - cols) * ra.
+                let cols = (step.e - (tc - tr) + n_free * ra) / (ca + ra);
                 let rows = n_free - cols;
                 let (mut col, mut row) = (c.col + cols * sc, c.row + rows * sr);
                 for _ in n_free..total {
@@ -473,11 +473,13 @@ impl MapBuilder {
     }
 
     /// Applies one tile's share of a chunk: `list` holds, in order, the jobs that can reach the
-    /// tile; `frame_ends[k]` is the end of frame k's job slots.
+    /// tile; `frame_ends[k]` is the end of frame k's job slots. `below_hi`: no cell of the
+    /// grid is above the upper clamp bound.
     ///
     /// # Safety
     /// `cells` must point at the grid's values, and no other thread may touch cells of `tile`
     /// while this runs.
+    #[allow(clippy::too_many_arguments)]
     unsafe fn run_tile(
         &self,
         list: &[u32],
@@ -485,12 +487,19 @@ impl MapBuilder {
         jobs: &[Job],
         tile: Tile,
         cells: Cells,
+        below_hi: bool,
         scratch: &mut CellMap<Strongest>,
     ) {
         let (lo, hi) = (self.lo, self.hi);
         match self.params.fusion {
+            FusionRule::EveryBeam if below_hi => {
+                let mut sink = Apply::<true> { cells, lo, hi };
+                for &j in list {
+                    self.job_in_tile(&jobs[j as usize], tile, &mut sink);
+                }
+            }
             FusionRule::EveryBeam => {
-                let mut sink = Apply { cells, lo, hi };
+                let mut sink = Apply::<false> { cells, lo, hi };
                 for &j in list {
                     self.job_in_tile(&jobs[j as usize], tile, &mut sink);
                 }
@@ -536,6 +545,13 @@ impl MapBuilder {
             (w * h) as usize,
             "values of this builder's grid"
         );
+        // Whether every cell is at most the upper bound (true unless the prior lies above it
+        // and some cells are untouched, or the grid came from elsewhere); compared in blocks
+        // so that the test runs in vector instructions.
+        let hi = self.hi;
+        let below_hi = values
+            .chunks(4096)
+            .all(|b| b.iter().fold(true, |ok, &v| ok & (v <= hi)));
         let cells = Cells(values.as_mut_ptr());
         // The frames of each chunk: about CHUNK_BEAMS beams.
         let mut chunks: Vec<Range<usize>> = Vec::new();
@@ -575,7 +591,9 @@ impl MapBuilder {
                     list.clear();
                     list.extend((0..n as u32).filter(|&j| meets_grid(reaches[j as usize])));
                     // SAFETY: one task owns the whole grid.
-                    unsafe { self.run_tile(&list, &[n], &jobs, whole, cells, &mut scratch) };
+                    unsafe {
+                        self.run_tile(&list, &[n], &jobs, whole, cells, below_hi, &mut scratch)
+                    };
                 }
                 if !after_chunk(range.end - frames.start) {
                     return;
@@ -663,6 +681,7 @@ impl MapBuilder {
                                 &c.jobs,
                                 tiles[t],
                                 cells,
+                                below_hi,
                                 &mut scratch,
                             )
                         };
@@ -708,11 +727,11 @@ impl ExactCell<'_> {
 }
 
 /// The state of a cell-by-cell walk near the diagonal: the grid index of the current cell and
-/// the integer parameters at which the walk leaves its column and its row.
+/// `e`, the parameter at which the walk leaves its column minus the one at which it leaves its
+/// row (the column is left first when `e < 0`; at a tie the row step comes first).
 struct DiagonalStep {
     i: isize,
-    tc: i64,
-    tr: i64,
+    e: i64,
     ca: i64,
     ra: i64,
     di_col: isize,
@@ -720,17 +739,17 @@ struct DiagonalStep {
 }
 
 impl DiagonalStep {
-    /// Steps to the next cell (the column when it is left first, else the row: the walk's own
-    /// rule) and says whether that was a column step. Written with masks rather than branches:
-    /// near the diagonal which axis comes next is unpredictable.
+    /// Steps to the next cell and says whether that was a column step. Both outcomes are
+    /// computed and one is selected (near the diagonal which axis comes next is
+    /// unpredictable), so the only chain from one cell to the next is a compare and a select.
     #[inline(always)]
     fn advance(&mut self) -> bool {
-        // All ones when the column is left first.
-        let m = (self.tc - self.tr) >> 63;
-        self.i += self.di_row + ((self.di_col - self.di_row) & m as isize);
-        self.tc += self.ca & m;
-        self.tr += self.ra & !m;
-        m != 0
+        let col = self.e < 0;
+        let (e_col, e_row) = (self.e + self.ca, self.e - self.ra);
+        let (i_col, i_row) = (self.i + self.di_col, self.i + self.di_row);
+        self.e = if col { e_col } else { e_row };
+        self.i = if col { i_col } else { i_row };
+        col
     }
 }
 
@@ -746,39 +765,63 @@ struct Chunk {
     lists: Vec<Vec<u32>>,
 }
 
-/// Where the cells of a beam go, by grid index: stretches of cells that all get one
+/// Where the cells of a beam go, by grid index: stretches of cells that all get the free
 /// increment, and single cells.
 trait Sink {
-    /// `count` cells from `start`, `stride` apart, each getting `inc`.
-    fn run(&mut self, start: usize, stride: usize, count: usize, inc: f32);
+    /// `count` cells from `start`, `stride` apart, each getting `free`, a free increment
+    /// (logit(p_free) < 0: the parameters require p_free < 0.5).
+    fn free_run(&mut self, start: usize, stride: usize, count: usize, free: f32);
+    /// One cell getting the free increment `free` (< 0).
+    fn free_cell(&mut self, i: usize, free: f32);
     /// One cell getting `inc`.
     fn cell(&mut self, i: usize, inc: f32);
 }
 
-/// EveryBeam: add and clamp at once.
-struct Apply {
+/// EveryBeam: add and clamp at once. With `BELOW_HI`, every cell of the grid is known to be
+/// at most `hi`, so a free (negative) increment can only meet the lower bound:
+/// max(lo, v + free) equals the full clamp bit for bit (v + free <= v <= hi when rounding
+/// to nearest), and the upper comparison is left out of the commonest update.
+struct Apply<const BELOW_HI: bool> {
     cells: Cells,
     lo: f32,
     hi: f32,
 }
 
-impl Sink for Apply {
+impl<const BELOW_HI: bool> Apply<BELOW_HI> {
     #[inline(always)]
-    fn run(&mut self, start: usize, stride: usize, count: usize, inc: f32) {
-        let (lo, hi) = (self.lo, self.hi);
+    fn add_free(&self, v: &mut f32, free: f32) {
+        if BELOW_HI {
+            let s = *v + free;
+            *v = if s < self.lo { self.lo } else { s };
+        } else {
+            *v = Clamp::apply(self.lo, self.hi, *v, free);
+        }
+    }
+}
+
+impl<const BELOW_HI: bool> Sink for Apply<BELOW_HI> {
+    #[inline(always)]
+    fn free_run(&mut self, start: usize, stride: usize, count: usize, free: f32) {
         if stride == 1 {
             // SAFETY: the stretch lies inside the running tile (clipped by `ray_in_tile`).
             let cells = unsafe { std::slice::from_raw_parts_mut(self.cells.0.add(start), count) };
             for v in cells {
-                *v = Clamp::apply(lo, hi, *v, inc);
+                self.add_free(v, free);
             }
         } else {
             for k in 0..count {
                 // SAFETY: as above, every cell of the stretch is in the tile.
                 let v = unsafe { &mut *self.cells.0.add(start + k * stride) };
-                *v = Clamp::apply(lo, hi, *v, inc);
+                self.add_free(v, free);
             }
         }
+    }
+
+    #[inline(always)]
+    fn free_cell(&mut self, i: usize, free: f32) {
+        // SAFETY: `ray_in_tile` only sends cells of the running tile.
+        let v = unsafe { &mut *self.cells.0.add(i) };
+        self.add_free(v, free);
     }
 
     #[inline(always)]
@@ -795,10 +838,15 @@ struct Collect<'a> {
 }
 
 impl Sink for Collect<'_> {
-    fn run(&mut self, start: usize, stride: usize, count: usize, inc: f32) {
+    fn free_run(&mut self, start: usize, stride: usize, count: usize, free: f32) {
         for k in 0..count {
-            self.cell(start + k * stride, inc);
+            self.cell(start + k * stride, free);
         }
+    }
+
+    #[inline(always)]
+    fn free_cell(&mut self, i: usize, free: f32) {
+        self.cell(i, free);
     }
 
     #[inline(always)]

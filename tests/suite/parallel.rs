@@ -78,3 +78,44 @@ fn random_sessions_with_cut_extents_and_exclusions() {
         assert_all_agree(session, params, &format!("random case {case}"));
     }
 }
+
+/// Cells above the upper clamp bound: a prior beyond it (untouched cells keep it), and a grid
+/// whose values came from elsewhere. The fast rebuild leaves out the upper comparison for free
+/// increments only when no cell is above the bound, so both must still match the plain loop.
+#[test]
+fn cells_above_the_upper_bound() {
+    let mut rng = TestRng(0xAB0E_0000_0000_0042);
+    for case in 0..6 {
+        let session = Arc::new(random_session(&mut rng));
+        let mut params = random_params(&mut rng);
+        params.fusion = gridscope::FusionRule::EveryBeam;
+        // logit(0.9) = 2.2 lies above this upper bound; logit(0.1) below the lower one.
+        params.clamp.max = 1.0;
+        params.clamp.min = -1.0;
+        params.prior = if case % 2 == 0 { 0.9 } else { 0.1 };
+        assert_all_agree(session.clone(), params.clone(), &format!("prior case {case}"));
+
+        // A grid with values on both sides of the bounds, integrated by both loops.
+        params.prior = 0.5;
+        let builder = MapBuilder::new(session.clone(), params).unwrap();
+        let mut start = builder.blank();
+        for v in start.values_mut() {
+            *v = rng.range(-3.0, 3.0) as f32;
+        }
+        let n = session.frames.len();
+        let mut plain = start.clone();
+        builder.integrate_plain(&mut plain, 0..n);
+        for threads in [1, 2] {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            let mut fast = start.clone();
+            pool.install(|| builder.integrate(&mut fast, 0..n));
+            assert!(
+                bits(&fast) == bits(&plain),
+                "grid case {case}: {threads} threads differ from the plain loop"
+            );
+        }
+    }
+}

@@ -81,19 +81,29 @@ fn random_sessions_with_cut_extents_and_exclusions() {
 
 /// Cells above the upper clamp bound: a prior beyond it (untouched cells keep it), and a grid
 /// whose values came from elsewhere. The fast rebuild leaves out the upper comparison for free
-/// increments only when no cell is above the bound, so both must still match the plain loop.
+/// increments only when it has checked that no cell is above the bound (it checks when the
+/// frames bring at least one beam per 64 cells), so both must still match the plain loop: on
+/// random sessions (small, checked or not) and on a demo run (long enough to be checked).
 #[test]
 fn cells_above_the_upper_bound() {
     let mut rng = TestRng(0xAB0E_0000_0000_0042);
+    let demo_run = Arc::new(demo::session("door-cycle").unwrap());
     for case in 0..6 {
-        let session = Arc::new(random_session(&mut rng));
-        let mut params = random_params(&mut rng);
+        let (session, mut params) = if case < 4 {
+            (Arc::new(random_session(&mut rng)), random_params(&mut rng))
+        } else {
+            (demo_run.clone(), demo::params("door-cycle").unwrap())
+        };
         params.fusion = gridscope::FusionRule::EveryBeam;
         // logit(0.9) = 2.2 lies above this upper bound; logit(0.1) below the lower one.
         params.clamp.max = 1.0;
         params.clamp.min = -1.0;
         params.prior = if case % 2 == 0 { 0.9 } else { 0.1 };
-        assert_all_agree(session.clone(), params.clone(), &format!("prior case {case}"));
+        assert_all_agree(
+            session.clone(),
+            params.clone(),
+            &format!("prior case {case}"),
+        );
 
         // A grid with values on both sides of the bounds, integrated by both loops.
         params.prior = 0.5;

@@ -18,11 +18,14 @@
 //!   cells in a row (or column), found with one comparison per row rather than one per cell;
 //! - the others are walked cell by cell with a known count: how many cells the walk takes in
 //!   the tile, and how many of them are free (below), are found ahead by integer division, so
-//!   the loop steps with masks and tests nothing per cell;
+//!   the loop tests nothing per cell, and it keeps one number (the column's leaving parameter
+//!   minus the row's) from which each step selects column or row without a branch;
 //! - most cells of a hit beam lie well in front of the reading, where every model gives exactly
 //!   logit(p_free). A cell entered at parameter t has its centre within res * sqrt(2)/2 of the
 //!   entry point, so while t + res * 0.70711 is below the model's free zone the increment is that
-//!   constant and neither the distance to the centre nor the table is needed;
+//!   constant and neither the distance to the centre nor the table is needed; and when no cell
+//!   of the grid is above the upper clamp bound (checked once per call), such a cell can only
+//!   meet the lower bound, so its update is an addition and one comparison;
 //! - on several threads, beams are prepared once per chunk (origin, direction, traversal
 //!   constants, the cells they can reach) and shared by all tiles; the tiles with the most
 //!   beams go first to whichever thread is free.

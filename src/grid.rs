@@ -14,26 +14,31 @@ use serde::{Deserialize, Serialize};
 pub const DEFAULT_CELL_BUDGET: u64 = 64_000_000;
 
 /// Asks the C allocator to keep freed blocks of up to 32 MB in the process rather than hand
-/// them back to the system. Seeking and rebuilding allocate and free grid-sized buffers (an
-/// 11 MB grid for a 100 m building at 5 cm) many times a second; given back and taken again,
-/// each costs fresh page faults and, with several threads, a pause for every core to drop the
-/// old mappings, measured here as seeks of 50-150 ms instead of 10-30 ms. Call once, at start
-/// (the `gridscope` command does). Only glibc on Linux has the knob; elsewhere this does
-/// nothing.
+/// them back to the system, in one pool for all threads. Seeking and rebuilding allocate and
+/// free grid-sized buffers (an 11 MB grid for a 100 m building at 5 cm) many times a second;
+/// given back and taken again, each costs fresh page faults and, with several threads, a pause
+/// for every core to drop the old mappings, measured here as seeks of 50-150 ms instead of
+/// 10-30 ms. With glibc's default of a pool per thread, a buffer freed after a seek that ran
+/// on one worker thread is not reused by the next seek when another worker runs it: measured
+/// with `gridscope bench`, the slowest of 50 seeks took 45-61 ms with a pool per thread and
+/// 16-17 ms with one pool. Call once, at start (the `gridscope` command does). Only glibc on
+/// Linux has the knobs; elsewhere this does nothing.
 pub fn keep_freed_buffers() {
     #[cfg(all(target_os = "linux", target_env = "gnu"))]
     {
         // mallopt(3): parameter numbers from glibc's malloc.h.
         const M_TRIM_THRESHOLD: i32 = -1;
         const M_MMAP_THRESHOLD: i32 = -3;
+        const M_ARENA_MAX: i32 = -8;
         unsafe extern "C" {
             fn mallopt(param: i32, value: i32) -> i32;
         }
-        // SAFETY: mallopt only changes allocator settings; both values are in range (the
-        // mmap threshold's ceiling on 64-bit glibc is 32 MB).
+        // SAFETY: mallopt only changes allocator settings; the values are in range (the mmap
+        // threshold's ceiling on 64-bit glibc is 32 MB).
         unsafe {
             mallopt(M_MMAP_THRESHOLD, 32 << 20);
             mallopt(M_TRIM_THRESHOLD, i32::MAX);
+            mallopt(M_ARENA_MAX, 1);
         }
     }
 }

@@ -157,7 +157,7 @@ enum Command {
         #[arg(long)]
         threads: Option<usize>,
         /// Repetitions per timing; the median is printed.
-        #[arg(long, default_value_t = 7)]
+        #[arg(long, default_value_t = 9)]
         reps: usize,
         /// Random seeks timed.
         #[arg(long, default_value_t = 50)]

@@ -6,7 +6,9 @@
 //! beside it), the full rebuild on one thread and on all threads (and whether the two grids
 //! are identical bit for bit), seeks of the window's replay engine to random frames, and
 //! loading the session's ranges from the packed (NumPy) layout against parsing them from RON.
-//! Each timing is the median of several repetitions. Speed targets belong here, never in tests.
+//! Each timing is the median of several repetitions; the floor passes and the two rebuilds take
+//! turns, and each ratio is the median of the repetitions' own ratios. Speed targets belong
+//! here, never in tests.
 
 use crate::error::Error;
 use crate::fusion::MapBuilder;
@@ -122,31 +124,30 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
         .build()
         .map_err(|e| Error::Window(e.to_string()))?;
 
-    say("memory floor");
+    say("memory floor and rebuilds on one thread and on all threads, in turn");
+    // Each repetition times the floor passes, a one-thread rebuild and an all-thread rebuild,
+    // one right after another, so that a slow spell of this shared machine lands on all three
+    // rather than on one side of a ratio; each ratio is the median of the repetitions' own
+    // ratios, so a spell that slows one repetition moves one ratio rather than one of two
+    // medians taken at different moments.
     let mut grid = builder.blank();
     let (lo, hi) = builder.clamp_bounds();
     let cells = spec.cells() as f64;
-    let floor = cells / time_floor(opts.reps, grid.values_mut(), lo, hi, floor_pass_per_cell);
-    let floor_simd = cells / time_floor(opts.reps, grid.values_mut(), lo, hi, floor_pass_vector);
-
-    say("rebuilds on one thread and on all threads, in turn");
-    // Alternating the two keeps a slow spell of this shared machine from landing on one side
-    // of the speedup only; the speedup is the median of each pair's ratio (a one-thread
-    // rebuild and the all-thread rebuild right after it), so a spell that slows one pair
-    // moves one ratio rather than one of the two medians.
+    let updates = cells_touched as f64;
     let (mut seq_grid, mut par_grid) = (builder.blank(), builder.blank());
     let (mut seq_times, mut par_times) = (Vec::new(), Vec::new());
+    let (mut floors, mut floors_simd) = (Vec::new(), Vec::new());
     for _ in 0..opts.reps.max(1) {
+        floors.push(cells / time_floor(grid.values_mut(), lo, hi, floor_pass_per_cell));
+        floors_simd.push(cells / time_floor(grid.values_mut(), lo, hi, floor_pass_vector));
         seq_times.push(time(1, || seq_grid = one.install(|| builder.build(n))));
         par_times.push(time(1, || par_grid = all.install(|| builder.build(n))));
     }
-    let speedup = median(
-        seq_times
-            .iter()
-            .zip(&par_times)
-            .map(|(s, p)| s / p)
-            .collect(),
-    );
+    let paired = |f: &dyn Fn(usize) -> f64| median((0..seq_times.len()).map(f).collect());
+    let speedup = paired(&|i| seq_times[i] / par_times[i]);
+    let floor_ratio = paired(&|i| updates / seq_times[i] / floors[i]);
+    let floor_ratio_simd = paired(&|i| updates / seq_times[i] / floors_simd[i]);
+    let (floor, floor_simd) = (median(floors), median(floors_simd));
     let (seq_s, par_s) = (median(seq_times), median(par_times));
     let identical = seq_grid
         .values()
@@ -191,10 +192,7 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     );
     put("threads", threads.to_string());
     put("speedup", format!("{speedup:.3}"));
-    put(
-        "floor_ratio",
-        format!("{:.3}", cells_touched as f64 / seq_s / floor),
-    );
+    put("floor_ratio", format!("{floor_ratio:.3}"));
     put("bit_identical", identical.to_string());
     put("seek_ms_median", format!("{seek_median:.2}"));
     put("seek_ms_max", format!("{seek_max:.2}"));
@@ -208,10 +206,7 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     );
     put("grid_cells", spec.cells().to_string());
     put("floor_vector_updates_per_s", format!("{floor_simd:.4e}"));
-    put(
-        "floor_ratio_vector",
-        format!("{:.3}", cells_touched as f64 / seq_s / floor_simd),
-    );
+    put("floor_ratio_vector", format!("{floor_ratio_simd:.3}"));
     put("seq_rebuild_s", format!("{seq_s:.3}"));
     put("par_rebuild_s", format!("{par_s:.3}"));
     put("snapshot_interval", replay.interval().to_string());
@@ -248,16 +243,10 @@ fn floor_pass_vector(values: &mut [f32], lo: f32, hi: f32) {
 }
 
 /// Seconds per pass of `pass` over `values`: one pass to settle the pages and caches, then the
-/// median of at least five.
-fn time_floor(
-    reps: usize,
-    values: &mut [f32],
-    lo: f32,
-    hi: f32,
-    pass: fn(&mut [f32], f32, f32),
-) -> f64 {
+/// median of five.
+fn time_floor(values: &mut [f32], lo: f32, hi: f32, pass: fn(&mut [f32], f32, f32)) -> f64 {
     pass(values, lo, hi);
-    time(reps.max(5), || {
+    time(5, || {
         pass(values, lo, hi);
         black_box(&*values);
     })

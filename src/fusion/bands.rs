@@ -476,6 +476,14 @@ impl MapBuilder {
         }
     }
 
+    /// Sends the cells of the listed jobs inside `tile` to `sink`, job after job.
+    #[inline(always)]
+    fn jobs_in_tile(&self, list: &[u32], jobs: &[Job], tile: Tile, sink: &mut impl Sink) {
+        for &j in list {
+            self.job_in_tile(&jobs[j as usize], tile, sink);
+        }
+    }
+
     /// Applies one tile's share of a chunk: `list` holds, in order, the jobs that can reach the
     /// tile; `frame_ends[k]` is the end of frame k's job slots. `below_hi`: no cell of the
     /// grid is above the upper clamp bound.
@@ -497,16 +505,10 @@ impl MapBuilder {
         let (lo, hi) = (self.lo, self.hi);
         match self.params.fusion {
             FusionRule::EveryBeam if below_hi => {
-                let mut sink = Apply::<true> { cells, lo, hi };
-                for &j in list {
-                    self.job_in_tile(&jobs[j as usize], tile, &mut sink);
-                }
+                self.jobs_in_tile(list, jobs, tile, &mut Apply::<true> { cells, lo, hi })
             }
             FusionRule::EveryBeam => {
-                let mut sink = Apply::<false> { cells, lo, hi };
-                for &j in list {
-                    self.job_in_tile(&jobs[j as usize], tile, &mut sink);
-                }
+                self.jobs_in_tile(list, jobs, tile, &mut Apply::<false> { cells, lo, hi })
             }
             FusionRule::OncePerCell => {
                 // Frame by frame: collect each cell's strongest increment, then apply it.

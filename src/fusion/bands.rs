@@ -551,20 +551,9 @@ impl MapBuilder {
             (w * h) as usize,
             "values of this builder's grid"
         );
-        // Whether every cell is at most the upper bound (true unless the prior lies above it
-        // and some cells are untouched, or the grid came from elsewhere). Finding out is a
-        // pass over the grid (in blocks, so that it runs in vector instructions), which pays
-        // only when the frames bring more updates than the grid has cells: a beam updates a
-        // hundred cells or so, so at least one beam per 64 cells.
-        let hi = self.hi;
-        let beams: usize = frames.clone().map(|f| self.frame_slots(f)).sum();
-        let below_hi = beams >= values.len() / 64
-            && values
-                .chunks(4096)
-                .all(|b| b.iter().fold(true, |ok, &v| ok & (v <= hi)));
-        let cells = Cells(values.as_mut_ptr());
         // The frames of each chunk: about CHUNK_BEAMS beams.
         let mut chunks: Vec<Range<usize>> = Vec::new();
+        let mut total_beams = 0;
         let mut f = frames.start;
         while f < frames.end {
             let mut end = f;
@@ -574,8 +563,20 @@ impl MapBuilder {
                 end += 1;
             }
             chunks.push(f..end);
+            total_beams += beams;
             f = end;
         }
+        // Whether every cell is at most the upper bound (true unless the prior lies above it
+        // and some cells are untouched, or the grid came from elsewhere). Finding out is a
+        // pass over the grid (in blocks, so that it runs in vector instructions), which pays
+        // only when the frames bring more updates than the grid has cells: a beam updates a
+        // hundred cells or so, so at least one beam per 64 cells.
+        let hi = self.hi;
+        let below_hi = total_beams >= values.len() / 64
+            && values
+                .chunks(4096)
+                .all(|b| b.iter().fold(true, |ok, &v| ok & (v <= hi)));
+        let cells = Cells(values.as_mut_ptr());
         // Whether a job's reach meets the grid at all.
         let meets_grid =
             |(a, b): (CellIndex, CellIndex)| b.col >= 0 && b.row >= 0 && a.col < w && a.row < h;

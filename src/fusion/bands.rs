@@ -84,12 +84,48 @@ enum Job {
     Skipped,
 }
 
-/// The cells a job can reach: (min, max) corners, inclusive. Kept beside the jobs rather than
-/// in them, so that listing jobs per tile reads little memory.
-type Reach = (CellIndex, CellIndex);
+/// The tiles a job can reach: tile columns `tx0..=tx1` and tile rows `ty0..=ty1` (tiles of
+/// [`TILE`] cells, counted from the grid's corner); empty (`ty0 > ty1`) when it reaches no cell
+/// of the grid. Found while jobs are prepared, in parallel, so that listing jobs per tile is
+/// only pushes; kept beside the jobs rather than in them, so that the listing reads little
+/// memory.
+#[derive(Clone, Copy, Debug)]
+struct Span {
+    tx0: u32,
+    tx1: u32,
+    ty0: u32,
+    ty1: u32,
+}
 
-/// The reach of an unused slot: no cell.
-const NO_REACH: Reach = (CellIndex { col: 0, row: 0 }, CellIndex { col: -1, row: -1 });
+impl Span {
+    /// The span of an unused slot, or of a job that reaches no cell of the grid.
+    const EMPTY: Span = Span {
+        tx0: 1,
+        tx1: 0,
+        ty0: 1,
+        ty1: 0,
+    };
+
+    /// The tiles holding cells `a..=b` (corners, inclusive) of a `w` x `h` grid.
+    #[inline(always)]
+    fn of_cells(a: CellIndex, b: CellIndex, w: i64, h: i64) -> Span {
+        if b.col < 0 || b.row < 0 || a.col >= w || a.row >= h {
+            return Span::EMPTY;
+        }
+        // Tile coordinates are cell coordinates shifted right (TILE is a power of two).
+        let shift = TILE.trailing_zeros();
+        Span {
+            tx0: (a.col.max(0) >> shift) as u32,
+            tx1: (b.col.min(w - 1) >> shift) as u32,
+            ty0: (a.row.max(0) >> shift) as u32,
+            ty1: (b.row.min(h - 1) >> shift) as u32,
+        }
+    }
+
+    fn is_empty(&self) -> bool {
+        self.ty0 > self.ty1
+    }
+}
 
 /// A rectangle of cells: rows `r0..r1`, columns `c0..c1`.
 #[derive(Clone, Copy, Debug)]
@@ -120,18 +156,21 @@ impl MapBuilder {
             .sum()
     }
 
-    /// Writes the jobs of frame `f`, in the contract's order, to the front of `out` and their
-    /// reaches to the front of `reaches` (both at least [`MapBuilder::frame_slots`] long), and
-    /// returns how many there are.
-    fn fill_frame_jobs(&self, f: usize, out: &mut [Job], reaches: &mut [Reach]) -> usize {
+    /// Writes the jobs of frame `f`, in the contract's order, to the front of `out` and the
+    /// tiles they can reach to the front of `spans` (both at least
+    /// [`MapBuilder::frame_slots`] long), and returns how many there are.
+    fn fill_frame_jobs(&self, f: usize, out: &mut [Job], spans: &mut [Span]) -> usize {
         let mut n = 0;
         let spec = &self.spec;
         let res = spec.resolution;
-        let widen = |a: CellIndex, b: CellIndex| {
+        let (w, h) = (spec.width as i64, spec.height as i64);
+        let span = |a: CellIndex, b: CellIndex| {
             // One cell of slack for end points on cell boundaries.
-            (
+            Span::of_cells(
                 CellIndex::new(a.col.min(b.col) - 1, a.row.min(b.row) - 1),
                 CellIndex::new(a.col.max(b.col) + 1, a.row.max(b.row) + 1),
+                w,
+                h,
             )
         };
         self.for_each_included_beam(f, |b| {
@@ -157,7 +196,7 @@ impl MapBuilder {
                         z,
                         free_until,
                     };
-                    reaches[n] = widen(walk.start, spec.cell_at(end));
+                    spans[n] = span(walk.start, spec.cell_at(end));
                     n += 1;
                 }
                 SensorKind::Cone => {
@@ -174,7 +213,7 @@ impl MapBuilder {
                         reach_m: b.reach,
                         reading: b.reading,
                     };
-                    reaches[n] = widen(spec.cell_at(bounds.min), spec.cell_at(bounds.max));
+                    spans[n] = span(spec.cell_at(bounds.min), spec.cell_at(bounds.max));
                     n += 1;
                 }
             }
@@ -577,9 +616,6 @@ impl MapBuilder {
                 .chunks(4096)
                 .all(|b| b.iter().fold(true, |ok, &v| ok & (v <= hi)));
         let cells = Cells(values.as_mut_ptr());
-        // Whether a job's reach meets the grid at all.
-        let meets_grid =
-            |(a, b): (CellIndex, CellIndex)| b.col >= 0 && b.row >= 0 && a.col < w && a.row < h;
         if !parallel {
             // One thread, one tile: each frame's jobs are prepared into one reused buffer and
             // applied at once, with no chunk to store.
@@ -589,18 +625,18 @@ impl MapBuilder {
                 c0: 0,
                 c1: w,
             };
-            let (mut jobs, mut reaches, mut list) = (Vec::new(), Vec::new(), Vec::new());
+            let (mut jobs, mut spans, mut list) = (Vec::new(), Vec::new(), Vec::new());
             let mut scratch = CellMap::default();
             for range in &chunks {
                 for f in range.clone() {
                     let slots = self.frame_slots(f);
                     if jobs.len() < slots {
                         jobs.resize(slots, Job::Skipped);
-                        reaches.resize(slots, NO_REACH);
+                        spans.resize(slots, Span::EMPTY);
                     }
-                    let n = self.fill_frame_jobs(f, &mut jobs, &mut reaches);
+                    let n = self.fill_frame_jobs(f, &mut jobs, &mut spans);
                     list.clear();
-                    list.extend((0..n as u32).filter(|&j| meets_grid(reaches[j as usize])));
+                    list.extend((0..n as u32).filter(|&j| !spans[j as usize].is_empty()));
                     // SAFETY: one task owns the whole grid.
                     unsafe {
                         self.run_tile(&list, &[n], &jobs, whole, cells, below_hi, &mut scratch)
@@ -634,41 +670,39 @@ impl MapBuilder {
             }
             if c.jobs.len() < total {
                 c.jobs.resize(total, Job::Skipped);
-                c.reaches.resize(total, NO_REACH);
+                c.spans.resize(total, Span::EMPTY);
             }
             let mut slices = Vec::with_capacity(range.len());
-            let (mut jobs, mut reaches) = (&mut c.jobs[..total], &mut c.reaches[..total]);
+            let (mut jobs, mut spans) = (&mut c.jobs[..total], &mut c.spans[..total]);
             let mut at = 0;
             for &end in &c.slot_ends {
                 let (mine, others) = jobs.split_at_mut(end - at);
-                let (my_reaches, other_reaches) = reaches.split_at_mut(end - at);
-                slices.push((mine, my_reaches));
-                (jobs, reaches) = (others, other_reaches);
+                let (my_spans, other_spans) = spans.split_at_mut(end - at);
+                slices.push((mine, my_spans));
+                (jobs, spans) = (others, other_spans);
                 at = end;
             }
             range
                 .into_par_iter()
                 .zip(slices.into_par_iter())
-                .map(|(f, (out, reaches))| self.fill_frame_jobs(f, out, reaches))
+                .map(|(f, (out, spans))| self.fill_frame_jobs(f, out, spans))
                 .collect_into_vec(&mut c.counts);
             c.lists.resize_with(tiles.len(), Vec::new);
             c.lists.iter_mut().for_each(Vec::clear);
-            // Tile coordinates are cell coordinates shifted right (TILE is a power of two).
-            let shift = TILE.trailing_zeros();
             let tw = tw as usize;
             for (k, &n) in c.counts.iter().enumerate() {
                 let first = if k == 0 { 0 } else { c.slot_ends[k - 1] };
-                for (j, &(a, b)) in (first..).zip(&c.reaches[first..first + n]) {
-                    if !meets_grid((a, b)) {
+                for (j, s) in (first as u32..).zip(&c.spans[first..first + n]) {
+                    if s.tx0 == s.tx1 && s.ty0 == s.ty1 {
+                        // Most beams stay in one tile.
+                        c.lists[s.ty0 as usize * tw + s.tx0 as usize].push(j);
                         continue;
                     }
-                    let tx0 = (a.col.max(0) >> shift) as usize;
-                    let tx1 = (b.col.min(w - 1) >> shift) as usize;
-                    let ty0 = (a.row.max(0) >> shift) as usize;
-                    let ty1 = (b.row.min(h - 1) >> shift) as usize;
-                    for ty in ty0..ty1 + 1 {
-                        for list in &mut c.lists[ty * tw + tx0..ty * tw + tx1 + 1] {
-                            list.push(j as u32);
+                    // An empty span has no tile row.
+                    for ty in s.ty0..s.ty1 + 1 {
+                        let row = ty as usize * tw;
+                        for list in &mut c.lists[row + s.tx0 as usize..=row + s.tx1 as usize] {
+                            list.push(j);
                         }
                     }
                 }
@@ -768,13 +802,13 @@ impl DiagonalStep {
     }
 }
 
-/// A prepared chunk of frames: job slots and their reaches (frame k owns slots
+/// A prepared chunk of frames: job slots and the tiles they can reach (frame k owns slots
 /// `slot_ends[k - 1]..slot_ends[k]` and fills the first `counts[k]` of them), and each tile's
 /// list, in order, of the jobs that can reach it. The buffers are reused from chunk to chunk.
 #[derive(Default)]
 struct Chunk {
     jobs: Vec<Job>,
-    reaches: Vec<Reach>,
+    spans: Vec<Span>,
     slot_ends: Vec<usize>,
     counts: Vec<usize>,
     lists: Vec<Vec<u32>>,

@@ -503,6 +503,7 @@ impl MapBuilder {
                     plan.cone_width,
                     reach_m,
                     tile.r0..tile.r1,
+                    plan.cone_tan_until(reading),
                     |cc| {
                         if cc.cell.col < tile.c0 || cc.cell.col >= tile.c1 {
                             return;

@@ -11,11 +11,11 @@
 mod bands;
 
 use crate::error::Error;
-use crate::footprint::{RayWalk, cone_bounds, cone_cells, ray_bounds};
+use crate::footprint::{ConeAngle, ConeCell, RayWalk, cone_bounds, cone_cells, ray_bounds};
 use crate::geometry::Point2;
 use crate::grid::{CellIndex, DEFAULT_CELL_BUDGET, Grid, GridSpec, WorldBox};
 use crate::logodds::{Clamp, logit};
-use crate::model::PreparedModel;
+use crate::model::{ConeFreeTable, PreparedModel};
 use crate::params::{FusionRule, NoReturnRule, Params};
 use crate::session::{BeamRef, Reading, SensorKind, Session};
 use std::collections::{HashMap, HashSet};
@@ -92,21 +92,42 @@ struct SensorPlan {
     kind: SensorKind,
     model: PreparedModel,
     cone_width: f64,
+    /// Cone sensors: free increments by the tangent of the bearing, where they can be
+    /// tabulated.
+    cone_free: Option<ConeFreeTable>,
     range_max: f64,
     excluded: bool,
 }
 
 impl SensorPlan {
+    /// For a cone beam with this reading: cells closer than this (metres) get the free
+    /// radial value, so their increment can come from the table by the bearing's tangent
+    /// (`f64::NEG_INFINITY` without a table). Pass it to the cone footprint.
+    fn cone_tan_until(&self, reading: Reading) -> f64 {
+        match (&self.cone_free, reading) {
+            (None, _) => f64::NEG_INFINITY,
+            (Some(_), Reading::Hit(z)) => self.model.free_below(z),
+            (Some(_), _) => f64::INFINITY,
+        }
+    }
+
     /// Increment (log-odds, as the grid stores it) of one cone cell for a reading: the one
-    /// definition both the plain loop and the fast rebuild use.
+    /// definition both the plain loop and the fast rebuild use. A cell comes with a tangent
+    /// only from a footprint given [`SensorPlan::cone_tan_until`] of the same reading.
     #[inline]
-    fn cone_increment(&self, reading: Reading, cc: &crate::footprint::ConeCell) -> f32 {
-        (match reading {
-            Reading::Hit(z) => {
-                self.model
-                    .cone_hit_increment(cc.distance, z, cc.bearing, self.cone_width)
+    fn cone_increment(&self, reading: Reading, cc: &ConeCell) -> f32 {
+        (match (cc.angle, &self.cone_free) {
+            (ConeAngle::Tan(s), Some(table)) => table.eval(s),
+            _ => {
+                let bearing = cc.angle.bearing();
+                match reading {
+                    Reading::Hit(z) => {
+                        self.model
+                            .cone_hit_increment(cc.distance, z, bearing, self.cone_width)
+                    }
+                    _ => self.model.cone_free_increment(bearing, self.cone_width),
+                }
             }
-            _ => self.model.cone_free_increment(cc.bearing, self.cone_width),
         }) as f32
     }
 }
@@ -200,12 +221,19 @@ impl MapBuilder {
         let plans: Vec<SensorPlan> = session
             .sensors
             .iter()
-            .map(|s| SensorPlan {
-                kind: s.kind,
-                model: PreparedModel::new(*params.model_for(&s.id)),
-                cone_width: s.cone_width,
-                range_max: s.range_max,
-                excluded: params.exclude.sensors.iter().any(|id| id == &s.id),
+            .map(|s| {
+                let model = PreparedModel::new(*params.model_for(&s.id));
+                SensorPlan {
+                    kind: s.kind,
+                    cone_free: match s.kind {
+                        SensorKind::Cone => ConeFreeTable::new(&model, s.cone_width),
+                        SensorKind::Ray => None,
+                    },
+                    model,
+                    cone_width: s.cone_width,
+                    range_max: s.range_max,
+                    excluded: params.exclude.sensors.iter().any(|id| id == &s.id),
+                }
             })
             .collect();
         let excluded_beams = params
@@ -487,7 +515,8 @@ impl MapBuilder {
                 });
             }
             SensorKind::Cone => {
-                for cc in cone_cells(spec, origin, heading, plan.cone_width, reach) {
+                let tan_until = plan.cone_tan_until(reading);
+                for cc in cone_cells(spec, origin, heading, plan.cone_width, reach, tan_until) {
                     let inc = plan.cone_increment(reading, &cc);
                     if let Some(idx) = spec.index(cc.cell) {
                         visit(idx, cc.cell, cc.distance, inc);

@@ -30,7 +30,7 @@
 //!   constants, the cells they can reach) and shared by all tiles; the tiles with the most
 //!   beams go first to whichever thread is free.
 
-use super::{CellMap, MapBuilder, SensorPlan, Strongest};
+use super::{MapBuilder, SensorPlan};
 use crate::footprint::{RayWalk, crossings_before, for_each_cone_cell, param};
 use crate::geometry::Point2;
 use crate::grid::CellIndex;
@@ -540,7 +540,7 @@ impl MapBuilder {
         tile: Tile,
         cells: Cells,
         below_hi: bool,
-        scratch: &mut CellMap<Strongest>,
+        scratch: &mut FrameBest,
     ) {
         let (lo, hi) = (self.lo, self.hi);
         match self.params.fusion {
@@ -552,22 +552,23 @@ impl MapBuilder {
             }
             FusionRule::OncePerCell => {
                 // Frame by frame: collect each cell's strongest increment, then apply it.
+                let w = self.spec.width as usize;
+                scratch.cover(tile.r0 as usize * w, (tile.r1 - tile.r0) as usize * w);
                 let mut k = 0;
                 let mut frame = 0;
                 while k < list.len() {
                     while frame_ends[frame] <= list[k] as usize {
                         frame += 1;
                     }
-                    scratch.clear();
-                    let mut sink = Collect { scratch };
+                    scratch.next_frame();
                     while k < list.len() && (list[k] as usize) < frame_ends[frame] {
-                        self.job_in_tile(&jobs[list[k] as usize], tile, &mut sink);
+                        self.job_in_tile(&jobs[list[k] as usize], tile, scratch);
                         k += 1;
                     }
-                    for (&i, s) in scratch.iter() {
+                    for (i, inc) in scratch.chosen() {
                         // SAFETY: `i` is a cell of this tile (the sink only receives those).
                         let v = unsafe { &mut *cells.0.add(i) };
-                        *v = Clamp::apply(lo, hi, *v, s.chosen().0);
+                        *v = Clamp::apply(lo, hi, *v, inc);
                     }
                 }
             }
@@ -627,7 +628,7 @@ impl MapBuilder {
                 c1: w,
             };
             let (mut jobs, mut spans, mut list) = (Vec::new(), Vec::new(), Vec::new());
-            let mut scratch = CellMap::default();
+            let mut scratch = FrameBest::default();
             for range in &chunks {
                 for f in range.clone() {
                     let slots = self.frame_slots(f);
@@ -721,7 +722,7 @@ impl MapBuilder {
             (0..rayon::current_num_threads())
                 .into_par_iter()
                 .for_each(|_| {
-                    let mut scratch = CellMap::default();
+                    let mut scratch = FrameBest::default();
                     while let Some(&t) = order.get(taken.fetch_add(1, Ordering::Relaxed)) {
                         // SAFETY: tiles are disjoint and each is taken by exactly one thread.
                         unsafe {
@@ -882,12 +883,61 @@ impl<const BELOW_HI: bool> Sink for Apply<BELOW_HI> {
     }
 }
 
-/// OncePerCell: remember each cell's strongest increment of the frame.
-struct Collect<'a> {
-    scratch: &'a mut CellMap<Strongest>,
+/// OncePerCell: each cell's largest and smallest increment of the current frame, in arrays
+/// over the rows of one tile (indexed by grid index minus the tile's first row), with the
+/// cells the frame touched listed in order. A frame number per cell tells which entries belong
+/// to the current frame, so nothing is cleared between frames; the arrays are reused for every
+/// tile a thread runs.
+#[derive(Default)]
+struct FrameBest {
+    base: usize,
+    frame: Vec<u32>,
+    max: Vec<f32>,
+    min: Vec<f32>,
+    touched: Vec<u32>,
+    now: u32,
 }
 
-impl Sink for Collect<'_> {
+impl FrameBest {
+    /// Makes the arrays cover grid indices `base..base + len`.
+    fn cover(&mut self, base: usize, len: usize) {
+        self.base = base;
+        if self.frame.len() < len {
+            // Fresh zeroed arrays (pages the system zeroes when first touched); frame number
+            // 0 is never current.
+            self.frame = vec![0; len];
+            self.max = vec![0.0; len];
+            self.min = vec![0.0; len];
+        }
+    }
+
+    /// Starts a frame: no cell has an increment yet.
+    fn next_frame(&mut self) {
+        self.touched.clear();
+        self.now = self.now.wrapping_add(1);
+        if self.now == 0 {
+            // After 2^32 frames the numbers come round: forget them all.
+            self.frame.fill(0);
+            self.now = 1;
+        }
+    }
+
+    /// The cells of the frame, in the order first touched, with the contract's choice: the
+    /// largest increment if any was positive, else the smallest (as `Strongest::chosen`).
+    fn chosen(&self) -> impl Iterator<Item = (usize, f32)> + '_ {
+        self.touched.iter().map(|&k| {
+            let k = k as usize;
+            let inc = if self.max[k] > 0.0 {
+                self.max[k]
+            } else {
+                self.min[k]
+            };
+            (self.base + k, inc)
+        })
+    }
+}
+
+impl Sink for FrameBest {
     fn free_run(&mut self, start: usize, stride: usize, count: usize, free: f32) {
         for k in 0..count {
             self.cell(start + k * stride, free);
@@ -901,9 +951,20 @@ impl Sink for Collect<'_> {
 
     #[inline(always)]
     fn cell(&mut self, i: usize, inc: f32) {
-        self.scratch
-            .entry(i)
-            .and_modify(|s| s.add(inc, (0, 0)))
-            .or_insert_with(|| Strongest::new(inc, (0, 0)));
+        let k = i - self.base;
+        if self.frame[k] != self.now {
+            self.frame[k] = self.now;
+            self.max[k] = inc;
+            self.min[k] = inc;
+            self.touched.push(k as u32);
+        } else {
+            // As `Strongest::add`: replace only on a strictly larger (smaller) increment.
+            if inc > self.max[k] {
+                self.max[k] = inc;
+            }
+            if inc < self.min[k] {
+                self.min[k] = inc;
+            }
+        }
     }
 }

@@ -17,7 +17,7 @@ use std::process::ExitCode;
 struct Cli {
     #[command(subcommand)]
     command: Option<Command>,
-    /// A session file to open in the window (default: the embedded demo).
+    /// A session file (or `demo:NAME`) to open in the window (default: the embedded demo).
     file: Option<PathBuf>,
 }
 
@@ -25,9 +25,10 @@ struct Cli {
 enum Command {
     /// Open the inspector window on a session (or a floor plan, simulated first).
     Open {
-        /// Session file (`*.session.ron`) or plan (`*.plan.ron`); the embedded demo if omitted.
+        /// Session file (`*.session.ron`), plan (`*.plan.ron`) or `demo:NAME`; the embedded
+        /// demo if omitted.
         file: Option<PathBuf>,
-        /// Parameter profile to apply.
+        /// Parameter profile to apply (`*.params.ron`, or `demo:NAME`).
         #[arg(long)]
         params: Option<PathBuf>,
     },

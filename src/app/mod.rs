@@ -285,9 +285,17 @@ impl GridscopeApp {
 
     // ----- loading ---------------------------------------------------------------------------
 
-    /// Opens a session file (or simulates a `*.plan.ron` first); on failure keeps what was
-    /// loaded and says why.
+    /// Opens a session file (or simulates a `*.plan.ron` first, or opens the embedded demo
+    /// named by `demo:NAME`); on failure keeps what was loaded and says why.
     pub fn open_session(&mut self, path: &Path) {
+        if let Some(name) = path.to_str().and_then(|s| s.strip_prefix("demo:")) {
+            // `demo:NAME`, as the batch commands take it.
+            match demo::find(name) {
+                Ok(d) => self.open_demo(d.name),
+                Err(e) => self.problem(e.to_string()),
+            }
+            return;
+        }
         let loaded = if path.to_string_lossy().ends_with(".plan.ron") {
             crate::sim::FloorPlan::load(path).map(|plan| crate::sim::simulate(&plan))
         } else {
@@ -377,15 +385,22 @@ impl GridscopeApp {
         }
     }
 
-    /// Loads a parameter profile and rebuilds with it.
+    /// Loads a parameter profile (or a demo's, `demo:NAME`) and rebuilds with it.
     pub fn open_params(&mut self, path: &Path) {
-        match Params::load(path) {
+        let demo = path.to_str().and_then(|s| s.strip_prefix("demo:"));
+        let loaded = match demo {
+            Some(name) => demo::params(name),
+            None => Params::load(path),
+        };
+        match loaded {
             Ok(p) => {
                 if self.set_params(p) {
                     if let Some(d) = &mut self.doc {
-                        d.params_path = Some(path.to_path_buf());
+                        d.params_path = demo.is_none().then(|| path.to_path_buf());
                     }
-                    settings::remember(&mut self.settings.recent_params, path);
+                    if demo.is_none() {
+                        settings::remember(&mut self.settings.recent_params, path);
+                    }
                     self.notice = Some(Notice::Info(format!("parameters from {}", path.display())));
                 }
             }

@@ -221,6 +221,43 @@ fn a_refused_file_keeps_what_was_loaded() {
     }
 }
 
+#[test]
+fn a_demo_opens_by_name_as_on_the_command_line() {
+    let mut h = harness();
+    h.state_mut()
+        .apply(Action::OpenSession("demo:sonar-ring".into()));
+    settle(&mut h);
+    let app = h.state();
+    let doc = app.doc.as_ref().expect("a document");
+    assert_eq!(doc.session.name, "Kestrel Yard sonar ring");
+    assert_eq!(doc.params, gridscope::demo::params("sonar-ring").unwrap());
+    // An unknown name is refused, naming the demos there are, and the sonar ring stays.
+    h.state_mut()
+        .apply(Action::OpenSession("demo:no-such".into()));
+    h.run_steps(2);
+    let app = h.state();
+    assert_eq!(
+        app.doc.as_ref().unwrap().session.name,
+        "Kestrel Yard sonar ring"
+    );
+    match &app.notice {
+        Some(gridscope::app::Notice::Problem(m)) => {
+            assert!(
+                m.contains("demo:no-such") && m.contains("door-cycle"),
+                "{m}"
+            )
+        }
+        other => panic!("{other:?}"),
+    }
+    // A demo's profile applies to the session open, by name too.
+    h.state_mut()
+        .apply(Action::OpenParams("demo:door-cycle".into()));
+    settle(&mut h);
+    let doc = h.state().doc.as_ref().unwrap();
+    assert_eq!(doc.params, gridscope::demo::params("door-cycle").unwrap());
+    assert_eq!(doc.params_path, None);
+}
+
 /// Clicks at a screen position with the given button.
 fn click_at(h: &mut Harness<'static, GridscopeApp>, pos: egui::Pos2, button: egui::PointerButton) {
     h.event(egui::Event::PointerMoved(pos));

@@ -620,13 +620,8 @@ impl MapBuilder {
         let cells = Cells(values.as_mut_ptr());
         if !parallel {
             // One thread, one tile: each frame's jobs are prepared into one reused buffer and
-            // applied at once, with no chunk to store.
-            let whole = Tile {
-                r0: 0,
-                r1: h,
-                c0: 0,
-                c1: w,
-            };
+            // applied at once, with no chunk to store. The tile is the rows of tiles the
+            // frame's jobs can reach (so that OncePerCell's arrays cover those, not the grid).
             let (mut jobs, mut spans, mut list) = (Vec::new(), Vec::new(), Vec::new());
             let mut scratch = FrameBest::default();
             for range in &chunks {
@@ -639,9 +634,22 @@ impl MapBuilder {
                     let n = self.fill_frame_jobs(f, &mut jobs, &mut spans);
                     list.clear();
                     list.extend((0..n as u32).filter(|&j| !spans[j as usize].is_empty()));
+                    let (ty0, ty1) = list.iter().fold((u32::MAX, 0), |(a, b), &j| {
+                        let s = spans[j as usize];
+                        (a.min(s.ty0), b.max(s.ty1))
+                    });
+                    if list.is_empty() {
+                        continue;
+                    }
+                    let rows = Tile {
+                        r0: ty0 as i64 * TILE,
+                        r1: ((ty1 as i64 + 1) * TILE).min(h),
+                        c0: 0,
+                        c1: w,
+                    };
                     // SAFETY: one task owns the whole grid.
                     unsafe {
-                        self.run_tile(&list, &[n], &jobs, whole, cells, below_hi, &mut scratch)
+                        self.run_tile(&list, &[n], &jobs, rows, cells, below_hi, &mut scratch)
                     };
                 }
                 if !after_chunk(range.end - frames.start) {
@@ -894,7 +902,7 @@ struct FrameBest {
     frame: Vec<u32>,
     max: Vec<f32>,
     min: Vec<f32>,
-    touched: Vec<u32>,
+    touched: Vec<usize>,
     now: u32,
 }
 
@@ -926,7 +934,6 @@ impl FrameBest {
     /// largest increment if any was positive, else the smallest (as `Strongest::chosen`).
     fn chosen(&self) -> impl Iterator<Item = (usize, f32)> + '_ {
         self.touched.iter().map(|&k| {
-            let k = k as usize;
             let inc = if self.max[k] > 0.0 {
                 self.max[k]
             } else {
@@ -956,7 +963,7 @@ impl Sink for FrameBest {
             self.frame[k] = self.now;
             self.max[k] = inc;
             self.min[k] = inc;
-            self.touched.push(k as u32);
+            self.touched.push(k);
         } else {
             // As `Strongest::add`: replace only on a strictly larger (smaller) increment.
             if inc > self.max[k] {

@@ -30,7 +30,7 @@
 //!   constants, the cells they can reach) and shared by all tiles; the tiles with the most
 //!   beams go first to whichever thread is free.
 
-use super::{MapBuilder, SensorPlan};
+use super::{MapBuilder, SensorPlan, takes_largest};
 use crate::footprint::{RayWalk, crossings_before, for_each_cone_cell, param};
 use crate::geometry::Point2;
 use crate::grid::CellIndex;
@@ -930,11 +930,11 @@ impl FrameBest {
         }
     }
 
-    /// The cells of the frame, in the order first touched, with the contract's choice: the
-    /// largest increment if any was positive, else the smallest (as `Strongest::chosen`).
+    /// The cells of the frame, in the order first touched, with the contract's choice of
+    /// increment ([`takes_largest`]).
     fn chosen(&self) -> impl Iterator<Item = (usize, f32)> + '_ {
         self.touched.iter().map(|&k| {
-            let inc = if self.max[k] > 0.0 {
+            let inc = if takes_largest(self.max[k]) {
                 self.max[k]
             } else {
                 self.min[k]

@@ -165,6 +165,14 @@ impl Hasher for CellHasher {
 
 type CellMap<V> = HashMap<usize, V, BuildHasherDefault<CellHasher>>;
 
+/// OncePerCell's choice (contract section 6) for a cell whose largest increment of a frame is
+/// `max`: that one when it is positive, else the smallest. The one statement of the rule for
+/// both the plain loop and the fast rebuild.
+#[inline(always)]
+fn takes_largest(max: f32) -> bool {
+    max > 0.0
+}
+
 /// The strongest increments a cell received within one frame, for OncePerCell.
 #[derive(Clone, Copy, Debug)]
 struct Strongest {
@@ -195,7 +203,7 @@ impl Strongest {
     }
     /// The contract's choice: the largest increment if any was positive, else the smallest.
     fn chosen(&self) -> (f32, (usize, usize)) {
-        if self.max > 0.0 {
+        if takes_largest(self.max) {
             (self.max, self.max_from)
         } else {
             (self.min, self.min_from)

@@ -401,4 +401,13 @@ fn bench_reports_every_key_and_identical_grids() {
         "{text}"
     );
     assert!(text.lines().any(|l| l == "bit_identical=true"), "{text}");
+    // The machine's own two-thread figure and the split's share of it: positive numbers.
+    for key in ["copies_speedup", "split_efficiency"] {
+        let value = text
+            .lines()
+            .find_map(|l| l.strip_prefix(key)?.strip_prefix('='))
+            .unwrap_or_else(|| panic!("no {key} in\n{text}"));
+        let x: f64 = value.parse().unwrap_or_else(|_| panic!("{key}={value}"));
+        assert!(x.is_finite() && x > 0.0, "{key}={value}");
+    }
 }

@@ -133,11 +133,11 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
         .map_err(|e| Error::Window(e.to_string()))?;
 
     say("memory floor, rebuilds on one thread and on all threads, independent copies, in turn");
-    // Each repetition times the floor passes, a one-thread rebuild and an all-thread rebuild,
-    // one right after another, so that a slow spell of this shared machine lands on all three
-    // rather than on one side of a ratio; each ratio is the median of the repetitions' own
-    // ratios, so a spell that slows one repetition moves one ratio rather than one of two
-    // medians taken at different moments.
+    // Each repetition times the floor passes, a one-thread rebuild, an all-thread rebuild and
+    // the independent copies, one right after another, so that a slow spell of this shared
+    // machine lands on all of them rather than on one side of a ratio; each ratio is the
+    // median of the repetitions' own ratios, so a spell that slows one repetition moves one
+    // ratio rather than one of two medians taken at different moments.
     let mut grid = builder.blank();
     let (lo, hi) = builder.clamp_bounds();
     let cells = spec.cells() as f64;
@@ -165,7 +165,7 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     }
     let paired = |f: &dyn Fn(usize) -> f64| median((0..seq_times.len()).map(f).collect());
     let speedup = paired(&|i| seq_times[i] / par_times[i]);
-    // Throughput of the independent copies over one rebuild: the most any split could reach.
+    // Throughput of the independent copies over one rebuild: about the most a split can reach.
     let ceiling = |i: usize| threads as f64 * seq_times[i] / copies_times[i];
     let copies_speedup = paired(&ceiling);
     let efficiency = paired(&|i| seq_times[i] / par_times[i] / ceiling(i));

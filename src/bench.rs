@@ -118,19 +118,17 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     let threads = opts
         .threads
         .unwrap_or_else(|| std::thread::available_parallelism().map_or(1, |n| n.get()));
-    let one = rayon::ThreadPoolBuilder::new()
-        .num_threads(1)
-        .build()
-        .map_err(|e| Error::Window(e.to_string()))?;
-    let all = rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .map_err(|e| Error::Window(e.to_string()))?;
+    let pool = |k: usize| {
+        rayon::ThreadPoolBuilder::new()
+            .num_threads(k)
+            .build()
+            .map_err(|e| Error::Window(e.to_string()))
+    };
+    let (one, all) = (pool(1)?, pool(threads)?);
     // One one-thread pool per thread, for as many independent one-thread rebuilds at once.
     let copies = (0..threads)
-        .map(|_| rayon::ThreadPoolBuilder::new().num_threads(1).build())
-        .collect::<Result<Vec<_>, _>>()
-        .map_err(|e| Error::Window(e.to_string()))?;
+        .map(|_| pool(1))
+        .collect::<Result<Vec<_>, _>>()?;
 
     say("memory floor, rebuilds on one thread and on all threads, independent copies, in turn");
     // Each repetition times the floor passes, a one-thread rebuild, an all-thread rebuild and
@@ -164,11 +162,12 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
         }));
     }
     let paired = |f: &dyn Fn(usize) -> f64| median((0..seq_times.len()).map(f).collect());
-    let speedup = paired(&|i| seq_times[i] / par_times[i]);
+    let speedup_at = |i: usize| seq_times[i] / par_times[i];
+    let speedup = paired(&speedup_at);
     // Throughput of the independent copies over one rebuild: about the most a split can reach.
     let ceiling = |i: usize| threads as f64 * seq_times[i] / copies_times[i];
     let copies_speedup = paired(&ceiling);
-    let efficiency = paired(&|i| seq_times[i] / par_times[i] / ceiling(i));
+    let efficiency = paired(&|i| speedup_at(i) / ceiling(i));
     let floor_ratio = paired(&|i| updates / seq_times[i] / floors[i]);
     let floor_ratio_simd = paired(&|i| updates / seq_times[i] / floors_simd[i]);
     let (floor, floor_simd) = (median(floors), median(floors_simd));

@@ -24,6 +24,12 @@ use std::sync::Arc;
 use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
+/// Repetitions per timing by default. The speedup of a single repetition swings widely on a
+/// shared two-core machine (1.3 to 2.1 here, seconds apart), so the median of nine still moved
+/// by 0.2 from run to run (1.66 to 1.88); the median of 21 moved by less than 0.1 (six runs,
+/// 1.74 to 1.83), for a bench of about a minute.
+pub const DEFAULT_REPS: usize = 21;
+
 /// What to measure.
 #[derive(Clone, Debug, PartialEq)]
 pub struct BenchOptions {
@@ -45,22 +51,32 @@ impl Default for BenchOptions {
             building: BuildingSpec::default(),
             resolution: 0.05,
             threads: None,
-            reps: 9,
+            reps: DEFAULT_REPS,
             seeks: 50,
         }
     }
 }
 
-fn median(mut v: Vec<f64>) -> f64 {
+/// The `q`-quantile of `v` (0 <= q <= 1; NaN when `v` is empty): the sorted values read at
+/// position q (n - 1), interpolating linearly between neighbours (definition 7 of Hyndman &
+/// Fan, "Sample quantiles in statistical packages", The American Statistician, 1996; the
+/// default of NumPy's `percentile` and of Python's `statistics.quantiles(method="inclusive")`).
+fn quantile(v: &[f64], q: f64) -> f64 {
+    let mut v = v.to_vec();
     v.sort_by(f64::total_cmp);
-    let n = v.len();
-    if n == 0 {
-        f64::NAN
-    } else if n % 2 == 1 {
-        v[n / 2]
-    } else {
-        (v[n / 2 - 1] + v[n / 2]) / 2.0
+    let Some(last) = v.len().checked_sub(1) else {
+        return f64::NAN;
+    };
+    let at = q.clamp(0.0, 1.0) * last as f64;
+    let (i, frac) = (at.floor() as usize, at.fract());
+    match v.get(i + 1) {
+        Some(&next) if frac > 0.0 => v[i] + frac * (next - v[i]),
+        _ => v[i],
     }
+}
+
+fn median(v: Vec<f64>) -> f64 {
+    quantile(&v, 0.5)
 }
 
 /// Seconds taken by `f`, median over `reps` runs.
@@ -164,6 +180,9 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     let paired = |f: &dyn Fn(usize) -> f64| median((0..seq_times.len()).map(f).collect());
     let speedup_at = |i: usize| seq_times[i] / par_times[i];
     let speedup = paired(&speedup_at);
+    // How far the repetitions' speedups spread: their first and third quartiles.
+    let speedups: Vec<f64> = (0..seq_times.len()).map(speedup_at).collect();
+    let (speedup_q1, speedup_q3) = (quantile(&speedups, 0.25), quantile(&speedups, 0.75));
     // Throughput of the independent copies over one rebuild: about the most a split can reach.
     let ceiling = |i: usize| threads as f64 * seq_times[i] / copies_times[i];
     let copies_speedup = paired(&ceiling);
@@ -232,6 +251,8 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     put("floor_ratio_vector", format!("{floor_ratio_simd:.3}"));
     put("copies_speedup", format!("{copies_speedup:.3}"));
     put("split_efficiency", format!("{efficiency:.3}"));
+    put("speedup_q1", format!("{speedup_q1:.3}"));
+    put("speedup_q3", format!("{speedup_q3:.3}"));
     put("seq_rebuild_s", format!("{seq_s:.3}"));
     put("par_rebuild_s", format!("{par_s:.3}"));
     put("snapshot_interval", replay.interval().to_string());
@@ -329,4 +350,30 @@ fn load_rates(session: &Session, reps: usize) -> Result<(f64, f64), Error> {
     });
     let _ = std::fs::remove_dir_all(&dir);
     Ok((total as f64 / load_s, numbers as f64 / ron_s))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn quantiles_interpolate_between_order_statistics() {
+        // Checked against Python's statistics.quantiles(data, n=4, method="inclusive"), which
+        // implements the same definition (Hyndman & Fan 1996, definition 7): [1, 2, 3, 4]
+        // gives 1.75, 2.5, 3.25; [3, 1, 4, 1, 5, 9, 2, 6] gives 1.75, 3.5, 5.25.
+        let a = [1.0, 2.0, 3.0, 4.0];
+        assert_eq!(quantile(&a, 0.25), 1.75);
+        assert_eq!(quantile(&a, 0.5), 2.5);
+        assert_eq!(quantile(&a, 0.75), 3.25);
+        let b = [3.0, 1.0, 4.0, 1.0, 5.0, 9.0, 2.0, 6.0];
+        assert_eq!(quantile(&b, 0.25), 1.75);
+        assert_eq!(quantile(&b, 0.5), 3.5);
+        assert_eq!(quantile(&b, 0.75), 5.25);
+        // The ends are the extremes; an odd count's median is its middle value.
+        assert_eq!(quantile(&b, 0.0), 1.0);
+        assert_eq!(quantile(&b, 1.0), 9.0);
+        assert_eq!(median(vec![5.0, 1.0, 3.0]), 3.0);
+        assert_eq!(quantile(&[7.0], 0.25), 7.0);
+        assert!(quantile(&[], 0.5).is_nan());
+    }
 }

@@ -158,7 +158,7 @@ enum Command {
         #[arg(long)]
         threads: Option<usize>,
         /// Repetitions per timing; the median is printed.
-        #[arg(long, default_value_t = 9)]
+        #[arg(long, default_value_t = gridscope::bench::DEFAULT_REPS)]
         reps: usize,
         /// Random seeks timed.
         #[arg(long, default_value_t = 50)]

@@ -401,13 +401,24 @@ fn bench_reports_every_key_and_identical_grids() {
         "{text}"
     );
     assert!(text.lines().any(|l| l == "bit_identical=true"), "{text}");
-    // The machine's own two-thread figure and the split's share of it: positive numbers.
-    for key in ["copies_speedup", "split_efficiency"] {
+    let number = |key: &str| -> f64 {
         let value = text
             .lines()
             .find_map(|l| l.strip_prefix(key)?.strip_prefix('='))
             .unwrap_or_else(|| panic!("no {key} in\n{text}"));
-        let x: f64 = value.parse().unwrap_or_else(|_| panic!("{key}={value}"));
-        assert!(x.is_finite() && x > 0.0, "{key}={value}");
+        value.parse().unwrap_or_else(|_| panic!("{key}={value}"))
+    };
+    // The machine's own two-thread figure and the split's share of it: positive numbers.
+    for key in ["copies_speedup", "split_efficiency"] {
+        let x = number(key);
+        assert!(x.is_finite() && x > 0.0, "{key}={x}");
     }
+    // The quartiles of the repetitions' speedups: with the single repetition run here, all
+    // three are that repetition's speedup.
+    let (q1, mid, q3) = (
+        number("speedup_q1"),
+        number("speedup"),
+        number("speedup_q3"),
+    );
+    assert!(mid > 0.0 && q1 == mid && q3 == mid, "{q1} {mid} {q3}");
 }

@@ -11,7 +11,8 @@
 //! own ratios. Beside the speedup it reports what the machine gives at that moment to as many
 //! independent one-thread rebuilds as there are threads, run at once (`copies_speedup`), and
 //! the speedup's share of that (`split_efficiency`): the first is the machine's, the second the
-//! parallel split's. Speed targets belong here, never in tests.
+//! parallel split's; and the quartiles of the repetitions' speedups, to show their spread.
+//! Speed targets belong here, never in tests.
 
 use crate::error::Error;
 use crate::fusion::MapBuilder;
@@ -25,9 +26,9 @@ use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
 /// Repetitions per timing by default. The speedup of a single repetition swings widely on a
-/// shared two-core machine (1.3 to 2.1 here, seconds apart), so the median of nine still moved
-/// by 0.2 from run to run (1.66 to 1.88); the median of 21 moved by less than 0.1 (six runs,
-/// 1.74 to 1.83), for a bench of about a minute.
+/// shared two-core machine (1.3 to 2.1 here, seconds apart), and the median of nine still moved
+/// by 0.2 from run to run; 21 make the median steadier for a bench of about a minute (README,
+/// Performance, has the figures).
 pub const DEFAULT_REPS: usize = 21;
 
 /// What to measure.

@@ -180,10 +180,10 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     }
     let paired = |f: &dyn Fn(usize) -> f64| median((0..seq_times.len()).map(f).collect());
     let speedup_at = |i: usize| seq_times[i] / par_times[i];
-    let speedup = paired(&speedup_at);
-    // How far the repetitions' speedups spread: their first and third quartiles.
+    // The repetitions' speedups: their median, and their first and third quartiles to show
+    // how far they spread.
     let speedups: Vec<f64> = (0..seq_times.len()).map(speedup_at).collect();
-    let (speedup_q1, speedup_q3) = (quantile(&speedups, 0.25), quantile(&speedups, 0.75));
+    let [speedup_q1, speedup, speedup_q3] = [0.25, 0.5, 0.75].map(|q| quantile(&speedups, q));
     // Throughput of the independent copies over one rebuild: about the most a split can reach.
     let ceiling = |i: usize| threads as f64 * seq_times[i] / copies_times[i];
     let copies_speedup = paired(&ceiling);

@@ -308,7 +308,7 @@ fn load_rates(session: &Session, reps: usize) -> Result<(f64, f64), Error> {
         source,
     })?;
     let header = dir.join("bench.session.ron");
-    crate::packed::write_packed(session, &header)?;
+    crate::session::write_packed(session, &header)?;
     let total: usize = session.stats().beams as usize;
     let load_s = time(reps, || {
         let s = Session::load(&header).expect("the packed session just written loads");

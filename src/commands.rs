@@ -5,8 +5,9 @@
 
 use crate::demo;
 use crate::error::{Error, InputError};
-use crate::export::{ExportOptions, Provenance, with_suffix, write_all_atomically, write_bundle};
+use crate::export::{ExportOptions, Provenance, with_suffix, write_bundle};
 use crate::fusion::MapBuilder;
+use crate::io::atomic::write_all_atomically;
 use crate::params::Params;
 use crate::session::Session;
 use crate::sim::{FloorPlan, reference_map, simulate};
@@ -385,7 +386,7 @@ pub fn pack(
         write_all_atomically(&[(out_path.to_path_buf(), session.to_ron_string().into_bytes())])?;
         vec![out_path.to_path_buf()]
     } else {
-        crate::packed::write_packed(&session, out_path).map_err(|e| match e {
+        crate::session::write_packed(&session, out_path).map_err(|e| match e {
             Error::Input(mut ie) => {
                 ie.file = session_arg.display().to_string();
                 Error::Input(ie)

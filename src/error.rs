@@ -129,6 +129,16 @@ pub enum Problem {
     /// A binary companion file (NumPy array, image) is malformed.
     #[error("{0}")]
     Malformed(String),
+    /// Something in the input is larger than gridscope reads.
+    #[error("{what} is {size} bytes, over the limit of {limit}")]
+    TooLarge {
+        /// What is too large.
+        what: &'static str,
+        /// Its size, bytes.
+        size: u64,
+        /// The limit, bytes.
+        limit: u64,
+    },
 }
 
 /// Any failure of the core.
@@ -212,31 +222,4 @@ impl Error {
     pub fn is_refusal(&self) -> bool {
         matches!(self, Error::Input(_) | Error::OverBudget { .. })
     }
-}
-
-/// Turns a RON parse error into a [`Problem::Syntax`] with line and column.
-pub(crate) fn ron_problem(e: &ron::error::SpannedError) -> Problem {
-    Problem::Syntax {
-        line: e.span.start.line,
-        col: e.span.start.col,
-        message: e.code.to_string(),
-    }
-}
-
-/// Reads a whole text file, naming the file on failure.
-pub(crate) fn read_text(path: &Path) -> Result<String, InputError> {
-    let bytes = std::fs::read(path).map_err(|e| InputError::at(path, Problem::Read(e)))?;
-    String::from_utf8(bytes).map_err(|e| {
-        let upto = &e.as_bytes()[..e.utf8_error().valid_up_to()];
-        let line = upto.iter().filter(|&&b| b == b'\n').count() + 1;
-        let col = upto.iter().rev().take_while(|&&b| b != b'\n').count() + 1;
-        InputError::at(
-            path,
-            Problem::Syntax {
-                line,
-                col,
-                message: "the file is not UTF-8 text".into(),
-            },
-        )
-    })
 }

@@ -7,6 +7,7 @@
 
 use crate::error::Error;
 use crate::geometry::Point2;
+use crate::io::numbers::multiple_of;
 use crate::logodds::probability;
 use serde::{Deserialize, Serialize};
 
@@ -149,7 +150,7 @@ impl GridSpec {
         Self::check_budget(width, height, budget)?;
         Ok(GridSpec {
             resolution,
-            origin: Point2::new(c0 * resolution, r0 * resolution),
+            origin: Point2::new(multiple_of(c0, resolution), multiple_of(r0, resolution)),
             width: width as u32,
             height: height as u32,
         })

@@ -4,10 +4,11 @@
 //! contract and names the offending field, so the window, the command line and the sweep all
 //! refuse the same things with the same words.
 
-use crate::error::{InputError, Problem, read_text};
+use crate::error::{InputError, Problem};
 use crate::geometry::Point2;
+use crate::io::doc;
+use crate::io::read::read_text;
 use crate::logodds::Clamp;
-use crate::session::{check_format, parse_versioned};
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::ops::RangeInclusive;
@@ -253,8 +254,8 @@ impl Params {
 
     /// Parses and validates a profile from RON text; `file` names it in errors.
     pub fn from_ron_str(text: &str, file: &str) -> Result<Params, InputError> {
-        let p: Params = parse_versioned(text, file)?;
-        check_format(p.format, file)?;
+        let p: Params = doc::parse(text, file)?;
+        doc::check_format(p.format, file)?;
         p.validate().map_err(|e| InputError::new(file, e))?;
         Ok(p)
     }

@@ -695,7 +695,7 @@ fn save_view(
     let mut bytes = std::io::Cursor::new(Vec::new());
     out.write_to(&mut bytes, image::ImageFormat::Png)
         .map_err(|e| e.to_string())?;
-    crate::export::write_all_atomically(&[(path.to_path_buf(), bytes.into_inner())])
+    crate::io::atomic::write_all_atomically(&[(path.to_path_buf(), bytes.into_inner())])
         .map_err(|e| e.to_string())
 }
 

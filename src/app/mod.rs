@@ -706,7 +706,7 @@ impl GridscopeApp {
     /// Saves the parameters applied now.
     pub fn save_params(&mut self, path: &Path) {
         let Some(doc) = &mut self.doc else { return };
-        let result = crate::export::write_all_atomically(&[(
+        let result = crate::io::atomic::write_all_atomically(&[(
             path.to_path_buf(),
             doc.params.to_ron_string().into_bytes(),
         )]);

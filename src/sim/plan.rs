@@ -4,9 +4,11 @@
 //! its reference map. Walls are segments; a wall may be glass (narrow beams mostly pass
 //! through it, wide beams reflect) and may exist only between two times (a door).
 
-use crate::error::{InputError, Problem, read_text};
+use crate::error::{InputError, Problem};
 use crate::geometry::Point2;
-use crate::session::{Sensor, check_format, parse_versioned};
+use crate::io::doc;
+use crate::io::read::read_text;
+use crate::session::Sensor;
 use serde::{Deserialize, Serialize};
 use std::path::Path;
 
@@ -152,8 +154,8 @@ impl FloorPlan {
 
     /// Parses and validates a plan from RON text; `file` names it in errors.
     pub fn from_ron_str(text: &str, file: &str) -> Result<FloorPlan, InputError> {
-        let p: FloorPlan = parse_versioned(text, file)?;
-        check_format(p.format, file)?;
+        let p: FloorPlan = doc::parse(text, file)?;
+        doc::check_format(p.format, file)?;
         p.validate().map_err(|e| InputError::new(file, e))?;
         Ok(p)
     }

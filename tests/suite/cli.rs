@@ -224,7 +224,7 @@ fn hostile_inputs_are_refused_cleanly() {
     assert_refused(
         "huge-count",
         GOOD.replace("count: 5", "count: 99999999999999").as_bytes(),
-        "ranges",
+        "angles",
     );
     assert_refused("deep", "[".repeat(50_000).as_bytes(), "line");
     // A reach of 1e30 m asks for an absurd grid: refused by the cell budget, not allocated.

@@ -180,7 +180,10 @@ fn reference_footprint(
     raw: f32,
 ) -> Vec<(CellIndex, f64)> {
     let r = raw as f64;
-    let hit = if !r.is_finite() || r < 0.0 || r < sensor.range_min {
+    // The contract's classes: NaN, negative values (negative infinity included) and values below
+    // range_min are invalid; values at or above range_max, positive infinity included, are
+    // no-returns (file contract, section 2).
+    let hit = if r.is_nan() || r < 0.0 || r < sensor.range_min {
         return vec![];
     } else if r >= sensor.range_max {
         if p.no_return == NoReturnRule::Ignore {

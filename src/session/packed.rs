@@ -19,10 +19,13 @@
 //! one row of ranges per frame of the right length) are checked on load and errors name the
 //! array file and the frame.
 
+use super::{Frame, RangeSource, RangeTable, ScanRef, Session};
 use crate::error::{Error, InputError, Problem};
-use crate::export::{npy_header, parse_npy_header, write_all_atomically};
 use crate::geometry::Pose2;
-use crate::session::{Frame, RangeSource, RangeTable, ScanRef, Session};
+use crate::io::atomic::write_all_atomically;
+use crate::io::npy;
+use crate::io::read::{open_limited, read_limited};
+use crate::limits::MAX_FRAMES;
 use serde::{Deserialize, Serialize};
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
@@ -50,18 +53,14 @@ struct MappedRanges {
 
 impl RangeSource for MappedRanges {
     fn as_slice(&self) -> &[f32] {
-        // SAFETY: `open_ranges` checked that offset + len * 4 lies inside the map and that
-        // the address is 4-byte aligned on a little-endian machine; the map lives as long as
-        // `self`. As with any memory map, the file must not be truncated while it is open.
+        // SAFETY: `open_ranges` checked, with checked arithmetic on the file's own header, that
+        // the map holds exactly offset + len * 4 bytes (a hostile shape cannot make the slice
+        // longer than the map), and that the data's address is 4-byte aligned on a
+        // little-endian machine; the map lives as long as `self`. As with any memory map, the
+        // file must not be truncated while it is open (the system would stop the process).
         unsafe {
             std::slice::from_raw_parts(self.map.as_ptr().add(self.offset) as *const f32, self.len)
         }
-    }
-}
-
-impl RangeSource for Vec<f32> {
-    fn as_slice(&self) -> &[f32] {
-        self
     }
 }
 
@@ -69,58 +68,29 @@ fn malformed(path: &Path, m: impl Into<String>) -> InputError {
     InputError::at(path, Problem::Malformed(m.into()))
 }
 
-/// Reads a small float array (times or poses) as f64, checking its shape.
+/// Reads a small float array (times or poses) as f64, checking its shape; `shape` gives each
+/// dimension's required length, `None` for any.
 fn read_small(path: &Path, shape: &[Option<usize>]) -> Result<(Vec<usize>, Vec<f64>), InputError> {
-    let bytes = std::fs::read(path).map_err(|e| InputError::at(path, Problem::Read(e)))?;
-    let h = parse_npy_header(&bytes).map_err(|m| malformed(path, m))?;
-    if h.fortran_order {
-        return Err(malformed(
-            path,
-            "the array must be in C order (fortran_order False)",
-        ));
-    }
+    // Times or poses of the largest session read, plus a generous header.
+    let limit = (MAX_FRAMES as u64) * 3 * 8 + (1 << 20);
+    let bytes = read_limited(path, limit)?;
+    let (h, values) = npy::read_floats(&bytes).map_err(|m| malformed(path, m))?;
+    h.require_c_order().map_err(|m| malformed(path, m))?;
     let fits = h.shape.len() == shape.len()
         && h.shape
             .iter()
             .zip(shape)
             .all(|(d, want)| want.is_none_or(|w| *d == w));
     if !fits {
+        let want: Vec<String> = shape
+            .iter()
+            .map(|d| d.map_or("any".to_string(), |d| d.to_string()))
+            .collect();
         return Err(malformed(
             path,
-            format!(
-                "shape {:?} does not fit {shape:?} (None: any length)",
-                h.shape
-            ),
+            format!("shape {:?} does not fit ({})", h.shape, want.join(", ")),
         ));
     }
-    let n: usize = h.shape.iter().product();
-    let data = &bytes[h.data_offset..];
-    let values: Vec<f64> = match h.descr.as_str() {
-        "<f8" if data.len() == n * 8 => data
-            .chunks_exact(8)
-            .map(|c| f64::from_le_bytes(c.try_into().expect("8 bytes")))
-            .collect(),
-        "<f4" if data.len() == n * 4 => data
-            .chunks_exact(4)
-            .map(|c| f32::from_le_bytes(c.try_into().expect("4 bytes")) as f64)
-            .collect(),
-        "<f8" | "<f4" => {
-            return Err(malformed(
-                path,
-                format!(
-                    "{} bytes of data, shape {:?} needs more or fewer",
-                    data.len(),
-                    h.shape
-                ),
-            ));
-        }
-        d => {
-            return Err(malformed(
-                path,
-                format!("element type {d:?} is not supported (use '<f8' or '<f4')"),
-            ));
-        }
-    };
     Ok((h.shape, values))
 }
 
@@ -130,23 +100,19 @@ fn open_ranges(
     frames: usize,
     beams: usize,
 ) -> Result<Arc<dyn RangeSource>, InputError> {
-    let file = std::fs::File::open(path).map_err(|e| InputError::at(path, Problem::Read(e)))?;
-    // SAFETY: the map is read-only; see `MappedRanges::as_slice` for the file's lifetime rule.
+    let (file, _) = open_limited(path, u64::MAX)?;
+    // SAFETY: a read-only map of a regular file (checked above); see `MappedRanges::as_slice`
+    // for the rule on the file's lifetime. Nothing is read from it before the checks below.
     let map =
         unsafe { memmap2::Mmap::map(&file) }.map_err(|e| InputError::at(path, Problem::Read(e)))?;
-    let h = parse_npy_header(&map).map_err(|m| malformed(path, m))?;
+    let h = npy::parse_header(&map).map_err(|m| malformed(path, m))?;
     if h.descr != "<f4" {
         return Err(malformed(
             path,
             format!("ranges must be float32 ('<f4'), found {:?}", h.descr),
         ));
     }
-    if h.fortran_order {
-        return Err(malformed(
-            path,
-            "the array must be in C order (fortran_order False)",
-        ));
-    }
+    h.require_c_order().map_err(|m| malformed(path, m))?;
     if h.shape != [frames, beams] {
         return Err(malformed(
             path,
@@ -156,13 +122,9 @@ fn open_ranges(
             ),
         ));
     }
-    let len = frames * beams;
-    if map.len() != h.data_offset + len * 4 {
-        return Err(malformed(
-            path,
-            format!("{} bytes, expected {}", map.len(), h.data_offset + len * 4),
-        ));
-    }
+    let len = h
+        .check_payload(map.len(), 4)
+        .map_err(|m| malformed(path, m))?;
     let aligned =
         (map.as_ptr() as usize + h.data_offset).is_multiple_of(std::mem::align_of::<f32>());
     if aligned && cfg!(target_endian = "little") {
@@ -174,7 +136,7 @@ fn open_ranges(
     } else {
         let v: Vec<f32> = map[h.data_offset..]
             .chunks_exact(4)
-            .map(|c| f32::from_le_bytes(c.try_into().expect("4 bytes")))
+            .map(|c| f32::from_le_bytes([c[0], c[1], c[2], c[3]]))
             .collect();
         Ok(Arc::new(v))
     }
@@ -192,6 +154,12 @@ pub(crate) fn load_frames(
     let poses_path = base.join(&packed.poses);
     let (shape, times) = read_small(&times_path, &[None])?;
     let n = shape[0];
+    if n > MAX_FRAMES {
+        return Err(malformed(
+            &times_path,
+            format!("{n} frames; at most {MAX_FRAMES} are read"),
+        ));
+    }
     let (_, poses) = read_small(&poses_path, &[Some(n), Some(3)])?;
     for id in packed.ranges.keys() {
         if session.sensor_index(id).is_none() {
@@ -328,8 +296,8 @@ pub fn write_packed(session: &Session, header: &Path) -> Result<Vec<PathBuf>, Er
     let (times_name, poses_name, range_names) = array_names(header, session);
     let dir = header.parent().map(Path::to_path_buf).unwrap_or_default();
     let n = session.frames.len();
-    let mut times = npy_header("<f8", &[n]);
-    let mut poses = npy_header("<f8", &[n, 3]);
+    let mut times = npy::header("<f8", &[n]);
+    let mut poses = npy::header("<f8", &[n, 3]);
     for f in &session.frames {
         times.extend_from_slice(&f.t.to_le_bytes());
         for v in [f.pose.x, f.pose.y, f.pose.theta] {
@@ -341,7 +309,7 @@ pub fn write_packed(session: &Session, header: &Path) -> Result<Vec<PathBuf>, Er
         (dir.join(&poses_name), poses),
     ];
     for (k, s) in session.sensors.iter().enumerate() {
-        let mut bytes = npy_header("<f4", &[n, s.beam_count()]);
+        let mut bytes = npy::header("<f4", &[n, s.beam_count()]);
         bytes.reserve(n * s.beam_count() * 4);
         for f in &session.frames {
             for r in session.ranges(f.scans[k]) {
@@ -417,7 +385,7 @@ mod tests {
         // A pose that is not finite, in frame 7.
         let poses = dir.join("g.poses.npy");
         let mut bytes = std::fs::read(&poses).unwrap();
-        let off = parse_npy_header(&bytes).unwrap().data_offset + (7 * 3 + 1) * 8;
+        let off = npy::parse_header(&bytes).unwrap().data_offset + (7 * 3 + 1) * 8;
         bytes[off..off + 8].copy_from_slice(&f64::NAN.to_le_bytes());
         std::fs::write(&poses, &bytes).unwrap();
         let e = Session::load(&header).unwrap_err();
@@ -429,8 +397,8 @@ mod tests {
         write_packed(&s, &header).unwrap();
         let lidar = dir.join("g.lidar.npy");
         let bytes = std::fs::read(&lidar).unwrap();
-        let h = parse_npy_header(&bytes).unwrap();
-        let mut short = npy_header("<f4", &[h.shape[0] - 1, h.shape[1]]);
+        let h = npy::parse_header(&bytes).unwrap();
+        let mut short = npy::header("<f4", &[h.shape[0] - 1, h.shape[1]]);
         short.extend_from_slice(&bytes[h.data_offset..bytes.len() - h.shape[1] * 4]);
         std::fs::write(&lidar, short).unwrap();
         let e = Session::load(&header).unwrap_err();

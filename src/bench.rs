@@ -15,7 +15,7 @@
 //! Speed targets belong here, never in tests.
 
 use crate::error::Error;
-use crate::fusion::MapBuilder;
+use crate::fusion::{CellBounds, MapBuilder};
 use crate::params::Params;
 use crate::replay::{DEFAULT_SNAPSHOT_BUDGET, Replay};
 use crate::session::Session;
@@ -154,7 +154,7 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     // median of the repetitions' own ratios, so a spell that slows one repetition moves one
     // ratio rather than one of two medians taken at different moments.
     let mut grid = builder.blank();
-    let (lo, hi) = builder.clamp_bounds();
+    let bounds = builder.bounds();
     let cells = spec.cells() as f64;
     let updates = cells_touched as f64;
     let (mut seq_grid, mut par_grid) = (builder.blank(), builder.blank());
@@ -162,8 +162,8 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     let (mut floors, mut floors_simd) = (Vec::new(), Vec::new());
     let mut copies_times = Vec::new();
     for _ in 0..opts.reps.max(1) {
-        floors.push(cells / time_floor(grid.values_mut(), lo, hi, floor_pass_per_cell));
-        floors_simd.push(cells / time_floor(grid.values_mut(), lo, hi, floor_pass_vector));
+        floors.push(cells / time_floor(grid.values_mut(), bounds, floor_pass_per_cell));
+        floors_simd.push(cells / time_floor(grid.values_mut(), bounds, floor_pass_vector));
         seq_times.push(time(1, || seq_grid = one.install(|| builder.build(n))));
         par_times.push(time(1, || par_grid = all.install(|| builder.build(n))));
         // What the machine gives this work on all threads at this moment, whatever the
@@ -270,31 +270,31 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
 /// The memory floor as the fusion loop meets it: one cell at a time, a scalar read, add,
 /// clamp and write per cell, in storage order. The volatile accesses keep the compiler from
 /// merging cells into vector instructions, which a cell update along a beam cannot use.
-fn floor_pass_per_cell(values: &mut [f32], lo: f32, hi: f32) {
+fn floor_pass_per_cell(values: &mut [f32], bounds: CellBounds) {
     let p = values.as_mut_ptr();
     for i in 0..values.len() {
         // SAFETY: `i` is inside `values`, which this function borrows mutably.
         unsafe {
             let v = std::ptr::read_volatile(p.add(i));
-            std::ptr::write_volatile(p.add(i), crate::logodds::Clamp::apply(lo, hi, v, 0.1));
+            std::ptr::write_volatile(p.add(i), bounds.update(v, 0.1));
         }
     }
 }
 
 /// The same pass written plainly, which the compiler turns into vector instructions (several
 /// cells per instruction): the streaming bandwidth of this machine, for context.
-fn floor_pass_vector(values: &mut [f32], lo: f32, hi: f32) {
+fn floor_pass_vector(values: &mut [f32], bounds: CellBounds) {
     for v in values.iter_mut() {
-        *v = crate::logodds::Clamp::apply(lo, hi, *v, 0.1);
+        *v = bounds.update(*v, 0.1);
     }
 }
 
 /// Seconds per pass of `pass` over `values`: one pass to settle the pages and caches, then the
 /// median of five.
-fn time_floor(values: &mut [f32], lo: f32, hi: f32, pass: fn(&mut [f32], f32, f32)) -> f64 {
-    pass(values, lo, hi);
+fn time_floor(values: &mut [f32], bounds: CellBounds, pass: fn(&mut [f32], CellBounds)) -> f64 {
+    pass(values, bounds);
     time(5, || {
-        pass(values, lo, hi);
+        pass(values, bounds);
         black_box(&*values);
     })
 }

@@ -156,10 +156,23 @@ impl RayWalk {
     /// with the fixed-point parameter at which it is entered (0 for the first), until `visit`
     /// returns `false` or the segment ends. Steps are integer additions.
     #[inline]
-    pub fn for_each_entered(&self, mut visit: impl FnMut(CellIndex, i64) -> bool) {
-        let mut c = self.start;
-        let (mut tc, mut tr) = (self.col_first, self.row_first);
-        let mut t_enter = 0;
+    pub fn for_each_entered(&self, visit: impl FnMut(CellIndex, i64) -> bool) {
+        self.for_each_entered_from(self.start, 0, visit);
+    }
+
+    /// As [`RayWalk::for_each_entered`], starting part-way at cell `from`, entered at
+    /// parameter `t_enter` (as [`RayWalk::enter_box`] finds them): the same cells a walk from
+    /// the origin visits from there on.
+    #[inline]
+    pub fn for_each_entered_from(
+        &self,
+        from: CellIndex,
+        t_enter: i64,
+        mut visit: impl FnMut(CellIndex, i64) -> bool,
+    ) {
+        let mut c = from;
+        let (mut tc, mut tr) = (self.leave_col(c.col), self.leave_row(c.row));
+        let mut t_enter = t_enter;
         loop {
             if !visit(c, t_enter) {
                 return;
@@ -180,6 +193,56 @@ impl RayWalk {
                 tr = tr.saturating_add(self.row_step);
             }
         }
+    }
+
+    /// The first cell of the segment inside the box of rows `rows` and columns `cols`, with the
+    /// parameter at which the walk enters it, exactly as a walk from the origin reaches it;
+    /// `None` when the segment never enters the box. A straight segment leaves a box at most
+    /// once, so the box's cells are those walked from here until the first one outside.
+    pub fn enter_box(
+        &self,
+        rows: std::ops::Range<i64>,
+        cols: std::ops::Range<i64>,
+    ) -> Option<(CellIndex, i64)> {
+        let (sc, sr) = (self.step_col, self.step_row);
+        let mut c = self.start;
+        let mut t_enter = 0i64;
+        if !rows.contains(&c.row) {
+            let entry = if sr > 0 && c.row < rows.start {
+                rows.start
+            } else if sr < 0 && c.row >= rows.end {
+                rows.end - 1
+            } else {
+                return None;
+            };
+            (c, t_enter) = self.enter_row(entry)?;
+        }
+        if !cols.contains(&c.col) {
+            let entry = if sc > 0 && c.col < cols.start {
+                cols.start
+            } else if sc < 0 && c.col >= cols.end {
+                cols.end - 1
+            } else {
+                return None;
+            };
+            // The walk steps from column entry - sc into entry at tc, from the first row it
+            // leaves strictly after tc (while a row is left at or before tc it steps rows).
+            let tc = self.leave_col(entry - sc);
+            if tc >= self.len {
+                return None;
+            }
+            let row = if sr != 0 {
+                self.first_row_leaving(c.row, tc, true)
+            } else {
+                c.row
+            };
+            if !rows.contains(&row) {
+                return None;
+            }
+            c = CellIndex::new(entry, row);
+            t_enter = tc;
+        }
+        Some((c, t_enter))
     }
 
     /// Calls `visit` on every cell of the segment, in order from the origin, until it returns

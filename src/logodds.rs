@@ -2,8 +2,8 @@
 //!
 //! A cell holds l = ln(p / (1 - p)); fusing an independent reading is an addition of the
 //! reading's own log-odds, and the sum is clamped to [min, max] so a cell can always change
-//! its mind again. Conversions never produce probabilities of exactly 0 or 1 from finite
-//! log-odds.
+//! its mind again (the update itself is [`crate::fusion::rule`]). Conversions never produce
+//! probabilities of exactly 0 or 1 from finite log-odds.
 
 use serde::{Deserialize, Serialize};
 
@@ -32,46 +32,6 @@ impl Default for Clamp {
             min: -2.0,
             max: 3.5,
         }
-    }
-}
-
-impl Clamp {
-    /// Adds `increment` to `value` and clamps the sum, all in log-odds (f32, as the grid stores).
-    /// Written as two comparisons (values are never NaN), which compile to one min and one max
-    /// instruction; every fusion path uses this one function so they agree bit for bit.
-    #[inline(always)]
-    pub fn apply(lo: f32, hi: f32, value: f32, increment: f32) -> f32 {
-        let s = value + increment;
-        let s = if s < lo { lo } else { s };
-        if s > hi { hi } else { s }
-    }
-
-    /// The bounds as f32, as the grid's update loop uses them.
-    pub fn bounds_f32(&self) -> (f32, f32) {
-        (self.min as f32, self.max as f32)
-    }
-
-    /// How many consecutive identical readings of log-odds `increment` take a cell from the
-    /// opposite bound across 0.5 (to strictly the other side of l = 0). `None` when the
-    /// increment points the wrong way or is zero.
-    pub fn readings_to_flip(&self, increment: f64) -> Option<u32> {
-        let start = if increment < 0.0 {
-            self.max
-        } else if increment > 0.0 {
-            self.min
-        } else {
-            return None;
-        };
-        // Smallest n with start + n * increment strictly past 0, applied step by step with
-        // clamping (the clamp never bites on the way across because the start is a bound).
-        let mut l = start;
-        for n in 1..=1_000_000u32 {
-            l = (l + increment).clamp(self.min, self.max);
-            if (increment < 0.0 && l < 0.0) || (increment > 0.0 && l > 0.0) {
-                return Some(n);
-            }
-        }
-        None
     }
 }
 
@@ -120,21 +80,5 @@ mod tests {
         assert!((first - 0.75).abs() < 1e-12);
         let second = probability(logit(0.95) + measurement);
         assert!((second - 0.983).abs() < 5e-4, "{second}");
-    }
-
-    #[test]
-    fn clamp_bounds_the_sum_and_counts_flips() {
-        assert_eq!(Clamp::apply(-2.0, 3.5, 3.0, 1.0), 3.5);
-        assert_eq!(Clamp::apply(-2.0, 3.5, -1.5, -1.0), -2.0);
-        assert_eq!(Clamp::apply(-2.0, 3.5, 0.0, 1.0), 1.0);
-        let c = Clamp {
-            min: -2.0,
-            max: 3.5,
-        };
-        // From 3.5, readings of -1.0 reach -0.5 after 4 steps (2.5, 1.5, 0.5, -0.5).
-        assert_eq!(c.readings_to_flip(-1.0), Some(4));
-        // From -2.0, readings of +0.85 reach 0.55 after 3 steps.
-        assert_eq!(c.readings_to_flip(0.85), Some(3));
-        assert_eq!(c.readings_to_flip(0.0), None);
     }
 }

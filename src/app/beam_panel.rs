@@ -192,7 +192,7 @@ impl BeamPanel {
     ) {
         let model = doc.builder.model(b.sensor);
         let sensor = &doc.session.sensors[b.sensor];
-        let (lo, hi) = doc.builder.clamp_bounds();
+        let crate::fusion::CellBounds { lo, hi } = doc.builder.bounds();
         let cells: Vec<[f64; 2]> = records
             .iter()
             .map(|r| [r.touch.distance, r.touch.increment as f64])

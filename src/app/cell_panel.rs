@@ -91,7 +91,7 @@ impl CellPanel {
             });
             return actions;
         };
-        let (lo, hi) = doc.builder.clamp_bounds();
+        let crate::fusion::CellBounds { lo, hi } = doc.builder.bounds();
         let prior = crate::logit(doc.params.prior) as f32;
         let now = updates
             .iter()

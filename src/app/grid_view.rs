@@ -59,7 +59,7 @@ pub struct ViewData<'a> {
     /// Changes whenever `grid` (or what it is compared with) does.
     pub grid_version: u64,
     /// Clamp bounds of the parameters that made `grid`, log-odds (for the palette).
-    pub clamp: (f32, f32),
+    pub clamp: crate::fusion::CellBounds,
     /// When set, colour cells by how their class differs from this grid (A) instead.
     pub compare_with: Option<&'a Grid>,
     /// Which layer is shown (part of the texture's identity).
@@ -279,7 +279,7 @@ impl GridView {
         self.transform = Some(t);
 
         // The grid texture, re-uploaded only when something it depends on changed.
-        let (lo, hi) = data.clamp;
+        let crate::fusion::CellBounds { lo, hi } = data.clamp;
         let key = (
             data.grid_version,
             data.settings.palette,

@@ -830,12 +830,12 @@ impl GridscopeApp {
             let pinned = self
                 .pinned
                 .as_ref()
-                .and_then(|p| p.shown.as_ref().map(|s| (&s.1, p.builder.clamp_bounds())));
+                .and_then(|p| p.shown.as_ref().map(|s| (&s.1, p.builder.bounds())));
             let own = self
                 .doc
                 .as_ref()
-                .map(|d| d.builder.clamp_bounds())
-                .unwrap_or((-1.0, 1.0));
+                .map(|d| d.builder.bounds())
+                .unwrap_or(crate::fusion::CellBounds { lo: -1.0, hi: 1.0 });
             let (grid, clamp, compare_with) = match (self.layer, pinned) {
                 (Layer::Pinned, Some((a, bounds))) => (Some(a), bounds, None),
                 (Layer::Difference, Some((a, _))) => (current, own, Some(a)),

@@ -6,6 +6,7 @@
 //! applied, so the map always matches parameters that are valid.
 
 use super::{Action, Document};
+use crate::fusion::CellBounds;
 use crate::logodds::{logit, probability};
 use crate::model::{PreparedModel, cone_probability};
 use crate::{FusionRule, ModelSpec, NoReturnRule, Params, Reading, SensorKind};
@@ -374,12 +375,12 @@ impl TuningPanel {
         ui.label(format!(
             "A cell at the upper clamp ({:+.2}) drops below p = 0.5 after {} consistent free readings ({l_free:+.3} each).",
             clamp.max,
-            say(clamp.readings_to_flip(l_free))
+            say(CellBounds::from(clamp).readings_to_flip(l_free as f32))
         ));
         ui.label(format!(
             "A cell at the lower clamp ({:+.2}) rises above p = 0.5 after {} consistent hits at the peak ({l_occ:+.3} each).",
             clamp.min,
-            say(clamp.readings_to_flip(l_occ))
+            say(CellBounds::from(clamp).readings_to_flip(l_occ as f32))
         ));
     }
 }

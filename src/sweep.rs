@@ -8,7 +8,7 @@
 
 use crate::fusion::MapBuilder;
 use crate::grid::Grid;
-use crate::params::{ModelSpec, Params};
+use crate::params::{Params, registry};
 use crate::score::{Score, score};
 use crate::session::Session;
 use rayon::prelude::*;
@@ -58,7 +58,7 @@ impl Vary {
             to: num(to)?,
             steps,
         };
-        set_param(&mut Params::default(), &vary.name, vary.from, true)?;
+        registry::find(&Params::default(), &vary.name)?;
         Ok(vary)
     }
 
@@ -73,49 +73,10 @@ impl Vary {
     }
 }
 
-/// Sets the parameter at dotted path `name` to `value`. With `probe`, an unknown sensor id in
-/// `models.ID.field` is accepted (the profile may not have that entry yet); otherwise a missing
-/// per-sensor model is created from the default model.
-pub fn set_param(p: &mut Params, name: &str, value: f64, probe: bool) -> Result<(), String> {
-    let set_model = |m: &mut ModelSpec, field: &str| -> Result<(), String> {
-        match (m, field) {
-            (ModelSpec::Gaussian { sigma, .. }, "sigma") => *sigma = value,
-            (ModelSpec::Gaussian { cutoff, .. }, "cutoff") => *cutoff = value,
-            (ModelSpec::Band { thickness, .. }, "thickness") => *thickness = value,
-            (ModelSpec::Gaussian { p_occ, .. } | ModelSpec::Band { p_occ, .. }, "p_occ") => {
-                *p_occ = value
-            }
-            (ModelSpec::Gaussian { p_free, .. } | ModelSpec::Band { p_free, .. }, "p_free") => {
-                *p_free = value
-            }
-            (m, f) => return Err(format!("a {} model has no parameter {f:?}", m.kind_name())),
-        }
-        Ok(())
-    };
-    let parts: Vec<&str> = name.split('.').collect();
-    match parts[..] {
-        ["resolution"] => p.resolution = value,
-        ["prior"] => p.prior = value,
-        ["clamp", "min"] => p.clamp.min = value,
-        ["clamp", "max"] => p.clamp.max = value,
-        ["default_model", field] => set_model(&mut p.default_model, field)?,
-        ["models", id, field] => {
-            let default = p.default_model;
-            let m = p.models.entry(id.to_string()).or_insert(default);
-            let r = set_model(m, field);
-            if probe {
-                p.models.remove(id);
-            }
-            r?
-        }
-        _ => {
-            return Err(format!(
-                "unknown parameter {name:?}; use resolution, prior, clamp.min, clamp.max, \
-                 default_model.FIELD or models.SENSOR.FIELD (FIELD: sigma, p_occ, p_free, cutoff, thickness)"
-            ));
-        }
-    }
-    Ok(())
+/// Sets the parameter at dotted path `name` (see [`registry`]) to `value`; a sensor without a
+/// model of its own gets a copy of the default model first.
+pub fn set_param(p: &mut Params, name: &str, value: f64) -> Result<(), String> {
+    registry::find(p, name)?.set(p, value)
 }
 
 /// Which score decides the best setting.
@@ -179,7 +140,7 @@ impl SweepResult {
     pub fn params_of(&self, base: &Params, i: usize) -> Params {
         let mut p = base.clone();
         for (v, x) in self.vary.iter().zip(&self.rows[i].values) {
-            let _ = set_param(&mut p, &v.name, *x, false);
+            let _ = set_param(&mut p, &v.name, *x);
         }
         p
     }
@@ -254,7 +215,7 @@ pub fn sweep(plan: &SweepPlan, cancel: &AtomicBool, done: &AtomicUsize) -> Sweep
                 }
                 let mut p = base.clone();
                 for (v, x) in vary.iter().zip(&values) {
-                    set_param(&mut p, &v.name, *x, false)?;
+                    set_param(&mut p, &v.name, *x)?;
                 }
                 p.validate().map_err(|e| e.to_string())?;
                 let builder = MapBuilder::new(session.clone(), p).map_err(|e| e.to_string())?;
@@ -312,8 +273,11 @@ mod tests {
     #[test]
     fn set_param_creates_per_sensor_models() {
         let mut p = Params::default();
-        set_param(&mut p, "models.ring.p_free", 0.3, false).unwrap();
+        set_param(&mut p, "models.ring.p_free", 0.3).unwrap();
         assert_eq!(p.models["ring"].p_free(), 0.3);
-        assert_eq!(p.default_model.p_free(), 0.35);
+        assert_eq!(
+            p.default_model.p_free(),
+            Params::default().default_model.p_free()
+        );
     }
 }

@@ -142,7 +142,7 @@ impl BeamPanel {
             sensor: selected_pair.0,
             beam: selected_pair.1,
         };
-        let Some(ray) = doc.session.beam(b) else {
+        let Some(ray) = doc.builder.beam_ray(b) else {
             ui.label(format!(
                 "sensor \"{}\" has no scan in frame {frame}",
                 sensors[b.sensor].id

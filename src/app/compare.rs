@@ -7,7 +7,7 @@ use super::worker::{Reply, Worker};
 use super::{Action, Document};
 use crate::fusion::MapBuilder;
 use crate::grid::Grid;
-use crate::params::Params;
+use crate::params::{Params, registry};
 use crate::score::{CellClass, CompareError, for_each_shared};
 use egui::{Color32, RichText};
 use std::collections::BTreeMap;
@@ -139,57 +139,56 @@ fn class_name(c: CellClass) -> &'static str {
     }
 }
 
-/// The parameters that differ between A and B, as (field, A, B) text.
+/// The parameters that differ between A and B, as (field, A, B) text: every tunable number
+/// either profile has (by the registry), then the choices that are not numbers.
 pub fn differing_fields(a: &Params, b: &Params) -> Vec<(String, String, String)> {
     let mut out = Vec::new();
-    let mut field = |name: &str, x: String, y: String| {
+    let mut field = |name: String, x: String, y: String| {
         if x != y {
-            out.push((name.to_string(), x, y));
+            out.push((name, x, y));
         }
     };
+    let show = |v: Option<f64>| v.map_or("-".to_string(), |v| v.to_string());
+    let mut paths: Vec<String> = Vec::new();
+    for t in registry::tunables(a)
+        .into_iter()
+        .chain(registry::tunables(b))
+    {
+        let path = t.path();
+        if !paths.contains(&path) {
+            field(path.clone(), show(t.get(a)), show(t.get(b)));
+            paths.push(path);
+        }
+    }
     field(
-        "resolution",
-        a.resolution.to_string(),
-        b.resolution.to_string(),
-    );
-    field("prior", a.prior.to_string(), b.prior.to_string());
-    field(
-        "clamp.min",
-        a.clamp.min.to_string(),
-        b.clamp.min.to_string(),
-    );
-    field(
-        "clamp.max",
-        a.clamp.max.to_string(),
-        b.clamp.max.to_string(),
-    );
-    field(
-        "fusion",
+        "fusion".into(),
         format!("{:?}", a.fusion),
         format!("{:?}", b.fusion),
     );
     field(
-        "no_return",
+        "no_return".into(),
         format!("{:?}", a.no_return),
         format!("{:?}", b.no_return),
     );
     field(
-        "default_model",
-        format!("{:?}", a.default_model),
-        format!("{:?}", b.default_model),
+        "default_model".into(),
+        a.default_model.kind_name().into(),
+        b.default_model.kind_name().into(),
     );
+    let kinds = |p: &Params| -> Vec<String> {
+        p.models
+            .iter()
+            .map(|(id, m)| format!("{id}: {}", m.kind_name()))
+            .collect()
+    };
+    field("models".into(), kinds(a).join(", "), kinds(b).join(", "));
     field(
-        "models",
-        format!("{:?}", a.models),
-        format!("{:?}", b.models),
-    );
-    field(
-        "extent",
+        "extent".into(),
         format!("{:?}", a.extent),
         format!("{:?}", b.extent),
     );
     field(
-        "exclude",
+        "exclude".into(),
         format!("{:?}", a.exclude),
         format!("{:?}", b.exclude),
     );

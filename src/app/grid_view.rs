@@ -188,7 +188,7 @@ impl GridView {
         };
         for scan in &f.scans {
             let sensor = &doc.session.sensors[scan.sensor];
-            let pose = f.pose.compose(&sensor.mount);
+            let pose = doc.builder.sensor_pose(frame, scan.sensor);
             for (k, &raw) in doc.session.ranges(*scan).iter().enumerate() {
                 let heading = pose.theta + sensor.angles.angle(k);
                 let reading = sensor.classify(raw);

@@ -805,7 +805,7 @@ impl GridscopeApp {
         }
         let reading = self
             .selected_beam()
-            .and_then(|b| Some((b.sensor, self.doc.as_ref()?.session.beam(b)?.reading)));
+            .and_then(|b| Some((b.sensor, self.doc.as_ref()?.builder.beam_ray(b)?.reading)));
         if self.settings.show_tuning
             && let Some(doc) = &self.doc
         {

@@ -5,6 +5,7 @@
 use super::jobs::Job;
 use super::{Action, Document};
 use crate::grid::Grid;
+use crate::params::registry;
 use crate::sweep::{Objective, SweepPlan, SweepResult, Vary, sweep};
 use egui::{Color32, RichText, Sense, vec2};
 use egui_plot::{Legend, Line, Plot, PlotPoints, Points};
@@ -49,28 +50,19 @@ impl Default for SweepPanel {
     }
 }
 
-/// Parameter paths offered for the session's sensors.
+/// Parameter paths offered: every tunable of the profile (the registry's order), plus the
+/// fields of a model of its own for each sensor that has none yet.
 fn names(doc: &Document) -> Vec<String> {
-    let mut v: Vec<String> = ["clamp.max", "clamp.min", "prior"]
-        .map(String::from)
-        .to_vec();
-    let fields = |m: &crate::ModelSpec| -> Vec<&'static str> {
-        match m {
-            crate::ModelSpec::Gaussian { .. } => vec!["sigma", "p_occ", "p_free", "cutoff"],
-            crate::ModelSpec::Band { .. } => vec!["thickness", "p_occ", "p_free"],
-        }
-    };
-    for f in fields(&doc.params.default_model) {
-        v.push(format!("default_model.{f}"));
-    }
+    let mut with_models = doc.params.clone();
     for s in &doc.session.sensors {
-        if let Some(m) = doc.params.models.get(&s.id) {
-            for f in fields(m) {
-                v.push(format!("models.{}.{f}", s.id));
-            }
-        }
+        let default = with_models.default_model;
+        with_models.models.entry(s.id.clone()).or_insert(default);
     }
-    v
+    registry::tunables(&with_models)
+        .iter()
+        .map(|t| t.path())
+        .filter(|p| p != "resolution")
+        .collect()
 }
 
 fn axis_ui(ui: &mut egui::Ui, key: &str, axis: &mut Axis, names: &[String]) {

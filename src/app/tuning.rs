@@ -9,6 +9,7 @@ use super::{Action, Document};
 use crate::fusion::CellBounds;
 use crate::logodds::{logit, probability};
 use crate::model::{PreparedModel, cone_probability};
+use crate::params::registry::{self, Tunable};
 use crate::{FusionRule, ModelSpec, NoReturnRule, Params, Reading, SensorKind};
 use egui::{Color32, RichText};
 use egui_plot::{HLine, Legend, Line, Plot, PlotPoints, VLine};
@@ -60,9 +61,26 @@ fn number(
     ui.add(s).on_hover_text(help).changed()
 }
 
-/// Edits one inverse model; `key` keeps widget ids apart. Returns whether it changed.
-fn model_ui(ui: &mut egui::Ui, key: &str, m: &mut ModelSpec) -> bool {
+/// A slider for one tunable of the registry, labelled `label`. Returns whether it changed.
+fn tunable_ui(ui: &mut egui::Ui, t: &Tunable, draft: &mut Params, label: &str) -> bool {
+    let Some(mut v) = t.get(draft) else {
+        return false;
+    };
+    let ((lo, hi), log) = t.slider();
+    let changed = number(ui, label, t.unit().suffix(), &mut v, lo..=hi, log, t.help());
+    changed && t.set(draft, v).is_ok()
+}
+
+/// Edits one inverse model (the default one for `sensor == None`): its kind, and its fields
+/// from the registry. Returns whether it changed.
+fn model_ui(ui: &mut egui::Ui, sensor: Option<&str>, draft: &mut Params) -> bool {
     let mut changed = false;
+    let key = sensor.unwrap_or("default");
+    let m = match sensor {
+        Some(id) => draft.models.get_mut(id),
+        None => Some(&mut draft.default_model),
+    };
+    let Some(m) = m else { return false };
     ui.horizontal(|ui| {
         ui.label("model");
         egui::ComboBox::from_id_salt(("model kind", key))
@@ -81,17 +99,13 @@ fn model_ui(ui: &mut egui::Ui, key: &str, m: &mut ModelSpec) -> bool {
             .response
             .on_hover_text("Gaussian: a peak of width sigma at the reading, floored at p_free in front and fading to 0.5 behind.\nBand: p_occ within thickness/2 of the reading, p_free in front of it.");
     });
-    ui.push_id(key, |ui| match m {
-        ModelSpec::Gaussian { sigma, p_occ, p_free, cutoff } => {
-            changed |= number(ui, "sigma", "m", sigma, 0.005..=0.5, true, "Width of the occupied peak around the reading, metres. Must be > 0.");
-            changed |= number(ui, "p_occ", "", p_occ, 0.5..=0.999, false, "Probability of occupancy at the reading itself. Must lie in (0.5, 1).");
-            changed |= number(ui, "p_free", "", p_free, 0.001..=0.5, false, "Probability of occupancy in front of the reading (free space). Must lie in (0, 0.5).");
-            changed |= number(ui, "cutoff", "sigma", cutoff, 0.0..=6.0, false, "How far past the reading the beam still touches cells, in multiples of sigma. Must be >= 0.");
-        }
-        ModelSpec::Band { thickness, p_occ, p_free } => {
-            changed |= number(ui, "thickness", "m", thickness, 0.01..=1.0, true, "Full thickness of the occupied band centred on the reading, metres. Must be > 0.");
-            changed |= number(ui, "p_occ", "", p_occ, 0.5..=0.999, false, "Probability of occupancy inside the band. Must lie in (0.5, 1).");
-            changed |= number(ui, "p_free", "", p_free, 0.001..=0.5, false, "Probability of occupancy in front of the band. Must lie in (0, 0.5).");
+    let model = *m;
+    ui.push_id(key, |ui| {
+        for f in registry::MODEL_FIELDS {
+            if (f.get)(&model).is_some() {
+                let t = Tunable::Model(sensor.map(String::from), f);
+                changed |= tunable_ui(ui, &t, draft, f.name);
+            }
         }
     });
     changed
@@ -134,11 +148,17 @@ impl TuningPanel {
             }
             ui.separator();
             ui.label(RichText::new("Grid").strong());
-            changed |= number(ui, "resolution", "m", &mut draft.resolution, 0.01..=0.5, true, "Cell side in metres. Must be > 0. Finer cells cost memory and time.");
-            changed |= number(ui, "prior", "", &mut draft.prior, 0.01..=0.99, false, "Initial probability of every cell, in (0, 1). It only sets the starting value; it is not subtracted from updates.");
+            let (clamp, grid): (Vec<_>, Vec<_>) = registry::PROFILE_FIELDS
+                .iter()
+                .partition(|f| f.name.starts_with("clamp."));
+            for f in grid {
+                changed |= tunable_ui(ui, &Tunable::Profile(f), &mut draft, f.name);
+            }
             ui.label(RichText::new("Clamp (log-odds)").strong());
-            changed |= number(ui, "min", "", &mut draft.clamp.min, -20.0..=-0.01, false, "Lower bound of a cell's log-odds; must be < 0. Closer to 0 lets a free cell turn occupied with fewer readings.");
-            changed |= number(ui, "max", "", &mut draft.clamp.max, 0.01..=60.0, false, "Upper bound of a cell's log-odds; must be > 0. Closer to 0 lets an occupied cell turn free with fewer readings (doors, moved pallets).");
+            for f in clamp {
+                let label = f.name.trim_start_matches("clamp.");
+                changed |= tunable_ui(ui, &Tunable::Profile(f), &mut draft, label);
+            }
             if draft.clamp.min < 0.0 && draft.clamp.max > 0.0 {
                 ui.label(format!(
                     "as probabilities: [{}, {}]",
@@ -158,7 +178,7 @@ impl TuningPanel {
             });
             ui.separator();
             ui.label(RichText::new("Default model").strong()).on_hover_text("Used by every sensor without a model of its own.");
-            changed |= model_ui(ui, "default", &mut draft.default_model);
+            changed |= model_ui(ui, None, &mut draft);
             for (i, sensor) in doc.session.sensors.iter().enumerate() {
                 ui.separator();
                 ui.horizontal(|ui| {
@@ -181,9 +201,7 @@ impl TuningPanel {
                     }
                     changed = true;
                 }
-                if let Some(m) = draft.models.get_mut(&sensor.id) {
-                    changed |= model_ui(ui, &sensor.id, m);
-                }
+                changed |= model_ui(ui, Some(&sensor.id), &mut draft);
             }
             ui.separator();
             changed |= self.exclusions_ui(ui, doc, &mut draft, frame);

@@ -2,12 +2,12 @@
 //! with one cell of margin, the origin snapped to a multiple of the resolution.
 
 use super::MapBuilder;
-use super::setup::SensorPlan;
+use super::setup::{SensorPlan, scan_pose};
 use crate::error::Error;
 use crate::footprint::{cone_bounds, ray_bounds};
 use crate::geometry::Point2;
 use crate::grid::{GridSpec, WorldBox};
-use crate::params::Params;
+use crate::params::{Params, SensorCorrection};
 use crate::session::{SensorKind, Session};
 
 impl MapBuilder {
@@ -17,6 +17,7 @@ impl MapBuilder {
         session: &Session,
         params: &Params,
         plans: &[SensorPlan],
+        corrections: &[SensorCorrection],
         budget: u64,
     ) -> Result<GridSpec, Error> {
         match params.extent {
@@ -30,7 +31,7 @@ impl MapBuilder {
                 })
             }
             None => {
-                let bounds = touched_bounds(session, params, plans);
+                let bounds = touched_bounds(session, params, plans, corrections);
                 GridSpec::covering(&bounds, params.resolution, 1, budget)
             }
         }
@@ -40,17 +41,22 @@ impl MapBuilder {
 /// World box holding every point any beam of the session reaches (exclusions are not applied,
 /// so leaving parts out never moves the grid). Falls back to the robot poses, or the world
 /// origin, when no beam touches anything.
-fn touched_bounds(session: &Session, params: &Params, plans: &[SensorPlan]) -> WorldBox {
+fn touched_bounds(
+    session: &Session,
+    params: &Params,
+    plans: &[SensorPlan],
+    corrections: &[SensorCorrection],
+) -> WorldBox {
     let mut bounds: Option<WorldBox> = None;
     let mut grow = |b: WorldBox| match &mut bounds {
         Some(all) => all.union(&b),
         None => bounds = Some(b),
     };
-    for frame in &session.frames {
+    for (f, frame) in session.frames.iter().enumerate() {
         for scan in &frame.scans {
             let plan = &plans[scan.sensor];
             let sensor = &session.sensors[scan.sensor];
-            let pose = frame.pose.compose(&sensor.mount);
+            let pose = scan_pose(session, corrections, f, scan.sensor);
             let origin = pose.position();
             for (beam, &raw) in session.ranges(*scan).iter().enumerate() {
                 let Some(reach) = plan.reach(sensor.classify(raw), params.no_return) else {

@@ -27,7 +27,7 @@ use crate::error::{Error, InputError};
 use crate::grid::{DEFAULT_CELL_BUDGET, Grid, GridSpec};
 use crate::logodds::logit;
 use crate::model::PreparedModel;
-use crate::params::Params;
+use crate::params::{Params, SensorCorrection};
 use crate::session::{BeamRef, Session};
 use setup::SensorPlan;
 use std::collections::HashSet;
@@ -43,6 +43,8 @@ pub struct MapBuilder {
     spec: GridSpec,
     plans: Vec<SensorPlan>,
     excluded_beams: HashSet<BeamRef>,
+    /// Per session sensor, the profile's corrections of its mount and clock.
+    corrections: Vec<SensorCorrection>,
     bounds: CellBounds,
     /// logit(prior), the value of a cell nothing has touched.
     prior: f32,
@@ -80,7 +82,12 @@ impl MapBuilder {
                 })
             })
             .collect();
-        let spec = Self::grid_for(&session, &params, &plans, budget)?;
+        let corrections: Vec<SensorCorrection> = session
+            .sensors
+            .iter()
+            .map(|s| params.calibration.get(&s.id).copied().unwrap_or_default())
+            .collect();
+        let spec = Self::grid_for(&session, &params, &plans, &corrections, budget)?;
         let prior = logit(params.prior) as f32;
         let bounds = CellBounds::from(params.clamp);
         Ok(MapBuilder {
@@ -89,6 +96,7 @@ impl MapBuilder {
             spec,
             plans,
             excluded_beams,
+            corrections,
             bounds,
             prior,
         })

@@ -11,8 +11,9 @@ use crate::footprint::{ConeAngle, ConeCell, RayWalk, cone_cells};
 use crate::geometry::{Point2, Pose2};
 use crate::grid::{CellIndex, GridSpec};
 use crate::model::{ConeFreeTable, PreparedModel};
+use crate::params::SensorCorrection;
 use crate::params::{NoReturnRule, Params};
-use crate::session::{BeamRef, Reading, Sensor, SensorKind, Session};
+use crate::session::{BeamRay, BeamRef, Reading, Sensor, SensorKind, Session};
 
 /// A beam that takes part in the fusion, resolved into world terms.
 #[derive(Clone, Copy)]
@@ -103,6 +104,36 @@ impl SensorPlan {
     }
 }
 
+/// The world pose of `sensor` when it took its scan in frame `f`, with its corrections: the
+/// mount moved by the mount corrections, and the robot pose taken at the frame's time plus the
+/// clock offset (interpolated between frames, held at the ends of the run). Without
+/// corrections, exactly the recorded pose composed with the recorded mount.
+pub(super) fn scan_pose(
+    session: &Session,
+    corrections: &[SensorCorrection],
+    f: usize,
+    sensor: usize,
+) -> Pose2 {
+    let frame = &session.frames[f];
+    let mount = session.sensors[sensor].mount;
+    let c = corrections.get(sensor).copied().unwrap_or_default();
+    if c.is_zero() {
+        return frame.pose.compose(&mount);
+    }
+    let robot = if c.time_offset == 0.0 {
+        frame.pose
+    } else {
+        session
+            .pose_at(frame.t + c.time_offset)
+            .unwrap_or(frame.pose)
+    };
+    robot.compose(&Pose2::new(
+        mount.x + c.mount_x,
+        mount.y + c.mount_y,
+        mount.theta + c.mount_theta,
+    ))
+}
+
 /// Distances from one beam origin to cell centres: the vector to cell (c, r)'s centre is
 /// `(c * res + ex0, r * res + ey0)`, so every path computes a cell's distance with the same
 /// operations and gets the same bits.
@@ -134,11 +165,26 @@ impl CentreOffsets {
 }
 
 impl MapBuilder {
-    /// The world pose of `sensor` when it took its scan in frame `f`.
-    pub(super) fn scan_pose(&self, session: &Session, f: usize, sensor: usize) -> Pose2 {
-        session.frames[f]
-            .pose
-            .compose(&session.sensors[sensor].mount)
+    /// The world pose of `sensor` when it took its scan in frame `f`, with the profile's
+    /// corrections of its mount and clock applied (see [`scan_pose`]).
+    pub fn sensor_pose(&self, f: usize, sensor: usize) -> Pose2 {
+        scan_pose(&self.session, &self.corrections, f, sensor)
+    }
+
+    /// One beam in world geometry as the fusion sees it (corrections applied), or `None` if
+    /// the frame, scan or beam does not exist.
+    pub fn beam_ray(&self, b: BeamRef) -> Option<BeamRay> {
+        let session = &*self.session;
+        let scan = session.scan_of(b.frame, b.sensor)?;
+        let raw = *session.ranges(scan).get(b.beam)?;
+        let sensor = &session.sensors[b.sensor];
+        let pose = self.sensor_pose(b.frame, b.sensor);
+        Some(BeamRay {
+            origin: pose.position(),
+            heading: pose.theta + sensor.angles.angle(b.beam),
+            reading: sensor.classify(raw),
+            raw,
+        })
     }
 
     /// Calls `visit` for every beam of frame `f` that takes part in the fusion (not excluded,
@@ -155,7 +201,7 @@ impl MapBuilder {
                 continue;
             }
             let sensor = &session.sensors[scan.sensor];
-            let pose = self.scan_pose(session, f, scan.sensor);
+            let pose = self.sensor_pose(f, scan.sensor);
             let origin = pose.position();
             for (beam, &raw) in session.ranges(*scan).iter().enumerate() {
                 let reading = sensor.classify(raw);
@@ -255,21 +301,16 @@ impl MapBuilder {
     /// One beam of the session as the fusion sees it (with its world pose), whether or not
     /// it is excluded; `None` for a beam that does not exist or touches nothing.
     pub(super) fn beam_as_included(&self, b: BeamRef) -> Option<Included<'_>> {
-        let session = &*self.session;
-        let scan = session.scan_of(b.frame, b.sensor)?;
-        let raw = *session.ranges(scan).get(b.beam)?;
-        let sensor = &session.sensors[b.sensor];
+        let ray = self.beam_ray(b)?;
         let plan = &self.plans[b.sensor];
-        let reading = sensor.classify(raw);
-        let reach = plan.reach(reading, self.params.no_return)?;
-        let pose = self.scan_pose(session, b.frame, b.sensor);
+        let reach = plan.reach(ray.reading, self.params.no_return)?;
         Some(Included {
             sensor: b.sensor,
             beam: b.beam,
             plan,
-            origin: pose.position(),
-            heading: pose.theta + sensor.angles.angle(b.beam),
-            reading,
+            origin: ray.origin,
+            heading: ray.heading,
+            reading: ray.reading,
             reach,
         })
     }

@@ -242,6 +242,31 @@ impl Session {
         frame.pose.compose(&self.sensors[sensor].mount)
     }
 
+    /// The robot pose at time `t` seconds: interpolated between the frames around `t` (linear in
+    /// x and y, along the shorter arc in theta), held at the first and last frame's pose outside
+    /// the run. `None` for a session without frames.
+    pub fn pose_at(&self, t: f64) -> Option<Pose2> {
+        let frames = &self.frames;
+        let first = frames.first()?;
+        let last = frames.last()?;
+        if t.is_nan() || t <= first.t {
+            return Some(first.pose);
+        }
+        if t >= last.t {
+            return Some(last.pose);
+        }
+        // The first frame later than t; frames before it are at or before t.
+        let k = frames.partition_point(|f| f.t <= t);
+        let (a, b) = (&frames[k - 1], &frames[k]);
+        let u = (t - a.t) / (b.t - a.t);
+        let turn = crate::geometry::wrap_angle(b.pose.theta - a.pose.theta);
+        Some(Pose2::new(
+            a.pose.x + u * (b.pose.x - a.pose.x),
+            a.pose.y + u * (b.pose.y - a.pose.y),
+            a.pose.theta + u * turn,
+        ))
+    }
+
     /// A beam resolved into world geometry, or `None` if the frame, scan or beam does not exist.
     pub fn beam(&self, b: BeamRef) -> Option<BeamRay> {
         let scan = self.scan_of(b.frame, b.sensor)?;
@@ -344,6 +369,28 @@ mod tests {
                 beam: 0
             })
             .is_none()
+        );
+    }
+
+    #[test]
+    fn poses_between_frames_are_interpolated_and_held_at_the_ends() {
+        // Geometry of a simple case: half-way between (1, 2, 0) at t = 0 and (1.1, 2, 0.1) at
+        // t = 0.1 is (1.05, 2, 0.05); before the run and after it the end poses hold.
+        let s = Session::from_ron_str(SMALL, "small").unwrap();
+        let p = s.pose_at(0.05).unwrap();
+        assert!((p.x - 1.05).abs() < 1e-12 && p.y == 2.0 && (p.theta - 0.05).abs() < 1e-12);
+        assert_eq!(s.pose_at(-3.0).unwrap(), s.frames[0].pose);
+        assert_eq!(s.pose_at(9.0).unwrap(), s.frames[1].pose);
+        assert_eq!(s.pose_at(0.1).unwrap(), s.frames[1].pose);
+        // The shorter arc: from 3.1 rad to -3.1 rad turns 0.083 rad through pi, not 6.2 back.
+        let mut two = Session::with_sensors("t".into(), String::new(), s.sensors.clone()).unwrap();
+        two.push_frame(0.0, Pose2::new(0.0, 0.0, 3.1), &[]).unwrap();
+        two.push_frame(1.0, Pose2::new(0.0, 0.0, -3.1), &[])
+            .unwrap();
+        let mid = two.pose_at(0.5).unwrap().theta;
+        assert!(
+            (crate::geometry::wrap_angle(mid) - std::f64::consts::PI).abs() < 1e-9,
+            "{mid}"
         );
     }
 

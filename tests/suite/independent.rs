@@ -128,6 +128,7 @@ pub fn random_params(r: &mut TestRng) -> Params {
         models,
         extent: None,
         exclude: Exclusions::default(),
+        calibration: Default::default(),
     }
 }
 

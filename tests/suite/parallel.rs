@@ -5,7 +5,7 @@
 use super::TestRng;
 use super::independent::{random_params, random_session};
 use gridscope::demo::{self, DEMOS};
-use gridscope::params::Extent;
+use gridscope::params::{Extent, SensorCorrection};
 use gridscope::{Grid, MapBuilder, Params, Point2, Session};
 use std::sync::Arc;
 
@@ -74,6 +74,18 @@ fn random_sessions_with_cut_extents_and_exclusions() {
         if case % 4 == 2 {
             params.exclude.frames.push(2..=4);
             params.exclude.beams.push((1, "laser".into(), 3));
+        }
+        if case % 5 == 3 {
+            // Mount and clock corrections move every beam of the sensor, on every route.
+            params.calibration.insert(
+                "laser".into(),
+                SensorCorrection {
+                    mount_x: rng.range(-0.2, 0.2),
+                    mount_y: rng.range(-0.2, 0.2),
+                    mount_theta: rng.range(-0.1, 0.1),
+                    time_offset: rng.range(-0.3, 0.3),
+                },
+            );
         }
         assert_all_agree(session, params, &format!("random case {case}"));
     }

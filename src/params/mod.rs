@@ -1,8 +1,14 @@
 //! The parameter profile (`*.params.ron`): everything besides the session that decides a map.
 //!
 //! Design decision: the profile is plain data with one `validate` that checks every rule of the
-//! contract and names the offending field, so the window, the command line and the sweep all
-//! refuse the same things with the same words.
+//! contract and names the offending field; the numbers are checked through the registry of
+//! tunables ([`registry`]), so the window, the command line and the sweep refuse the same
+//! things with the same words.
+
+mod model_spec;
+pub mod registry;
+
+pub use model_spec::ModelSpec;
 
 use crate::error::{InputError, Problem};
 use crate::geometry::Point2;
@@ -34,120 +40,9 @@ pub enum NoReturnRule {
     Ignore,
 }
 
-/// An inverse sensor model: the probability of occupancy along a beam given its reading.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
-pub enum ModelSpec {
-    /// Gaussian-shaped peak at the reading, floored at `p_free` in front, tending to 0.5 behind.
-    Gaussian {
-        /// Width of the peak, metres.
-        sigma: f64,
-        /// Peak probability at the reading.
-        p_occ: f64,
-        /// Floor in front of the reading.
-        p_free: f64,
-        /// The beam reaches `cutoff * sigma` metres past the reading.
-        cutoff: f64,
-    },
-    /// A band of `thickness` metres around the reading at `p_occ`, `p_free` in front.
-    Band {
-        /// Full thickness of the occupied band, metres.
-        thickness: f64,
-        /// Probability inside the band.
-        p_occ: f64,
-        /// Probability in front of the band.
-        p_free: f64,
-    },
-}
-
-impl Default for ModelSpec {
-    fn default() -> Self {
-        ModelSpec::Gaussian {
-            sigma: 0.05,
-            p_occ: 0.8,
-            p_free: 0.35,
-            cutoff: 3.0,
-        }
-    }
-}
-
-impl ModelSpec {
-    /// The model's free-space probability.
-    pub fn p_free(&self) -> f64 {
-        match *self {
-            ModelSpec::Gaussian { p_free, .. } | ModelSpec::Band { p_free, .. } => p_free,
-        }
-    }
-
-    /// The model's occupied probability at the reading.
-    pub fn p_occ(&self) -> f64 {
-        match *self {
-            ModelSpec::Gaussian { p_occ, .. } | ModelSpec::Band { p_occ, .. } => p_occ,
-        }
-    }
-
-    /// How far past the reading the beam reaches, metres.
-    pub fn reach_past_hit(&self) -> f64 {
-        match *self {
-            ModelSpec::Gaussian { sigma, cutoff, .. } => cutoff * sigma,
-            ModelSpec::Band { thickness, .. } => thickness / 2.0,
-        }
-    }
-
-    /// Short name of the model kind.
-    pub fn kind_name(&self) -> &'static str {
-        match self {
-            ModelSpec::Gaussian { .. } => "Gaussian",
-            ModelSpec::Band { .. } => "Band",
-        }
-    }
-
-    /// Checks the contract's rules; `at` is the field path of this model in the profile.
-    pub fn validate(&self, at: &str) -> Result<(), Problem> {
-        let (p_occ, p_free) = (self.p_occ(), self.p_free());
-        check_open_unit(&format!("{at}.p_occ"), p_occ)?;
-        check_open_unit(&format!("{at}.p_free"), p_free)?;
-        if p_occ <= 0.5 {
-            return Err(bad(
-                &format!("{at}.p_occ"),
-                format!("must be > 0.5 (got {p_occ})"),
-            ));
-        }
-        if p_free >= 0.5 {
-            return Err(bad(
-                &format!("{at}.p_free"),
-                format!("must be < 0.5 (got {p_free})"),
-            ));
-        }
-        match *self {
-            ModelSpec::Gaussian { sigma, cutoff, .. } => {
-                if !(sigma.is_finite() && sigma > 0.0) {
-                    return Err(bad(
-                        &format!("{at}.sigma"),
-                        format!("must be > 0 metres (got {sigma})"),
-                    ));
-                }
-                if !(cutoff.is_finite() && cutoff >= 0.0) {
-                    return Err(bad(
-                        &format!("{at}.cutoff"),
-                        format!("must be >= 0 (got {cutoff})"),
-                    ));
-                }
-            }
-            ModelSpec::Band { thickness, .. } => {
-                if !(thickness.is_finite() && thickness > 0.0) {
-                    return Err(bad(
-                        &format!("{at}.thickness"),
-                        format!("must be > 0 metres (got {thickness})"),
-                    ));
-                }
-            }
-        }
-        Ok(())
-    }
-}
-
 /// A fixed grid extent: south-west corner and size in cells.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Extent {
     /// World coordinates of the south-west corner of cell (0, 0), metres.
     pub origin: Point2,
@@ -181,6 +76,28 @@ impl Exclusions {
     }
 }
 
+/// Corrections to one sensor's mount and clock (gridscope's own optional profile field
+/// `calibration`), applied by every fusion path. All zero means the session as recorded.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct SensorCorrection {
+    /// Added to the mount's x (forward in the robot frame), metres.
+    pub mount_x: f64,
+    /// Added to the mount's y (left in the robot frame), metres.
+    pub mount_y: f64,
+    /// Added to the mount's heading, radians counter-clockwise.
+    pub mount_theta: f64,
+    /// A scan stamped t was taken at pose time t + time_offset, seconds.
+    pub time_offset: f64,
+}
+
+impl SensorCorrection {
+    /// Whether nothing is corrected.
+    pub fn is_zero(&self) -> bool {
+        *self == SensorCorrection::default()
+    }
+}
+
 /// A complete parameter profile, per the contract (section 3).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -208,6 +125,9 @@ pub struct Params {
     /// Frames, sensors and beams left out (gridscope's own optional field).
     #[serde(default, skip_serializing_if = "Exclusions::is_empty")]
     pub exclude: Exclusions,
+    /// Per sensor id, corrections to the mount and the clock (gridscope's own optional field).
+    #[serde(default, skip_serializing_if = "BTreeMap::is_empty")]
+    pub calibration: BTreeMap<String, SensorCorrection>,
 }
 
 impl Default for Params {
@@ -223,6 +143,7 @@ impl Default for Params {
             models: BTreeMap::new(),
             extent: None,
             exclude: Exclusions::default(),
+            calibration: BTreeMap::new(),
         }
     }
 }
@@ -231,17 +152,6 @@ fn bad(field: &str, reason: String) -> Problem {
     Problem::BadField {
         field: field.to_string(),
         reason,
-    }
-}
-
-fn check_open_unit(field: &str, p: f64) -> Result<(), Problem> {
-    if p > 0.0 && p < 1.0 {
-        Ok(())
-    } else {
-        Err(bad(
-            field,
-            format!("must lie strictly between 0 and 1 (got {p})"),
-        ))
     }
 }
 
@@ -265,28 +175,15 @@ impl Params {
         if self.format != 1 {
             return Err(Problem::UnknownFormat { found: self.format });
         }
-        if !(self.resolution.is_finite() && self.resolution > 0.0) {
-            return Err(bad(
-                "resolution",
-                format!("must be > 0 metres (got {})", self.resolution),
-            ));
-        }
-        check_open_unit("prior", self.prior)?;
-        if !(self.clamp.min.is_finite() && self.clamp.min < 0.0) {
-            return Err(bad(
-                "clamp.min",
-                format!("must be a log-odds value < 0 (got {})", self.clamp.min),
-            ));
-        }
-        if !(self.clamp.max.is_finite() && self.clamp.max > 0.0) {
-            return Err(bad(
-                "clamp.max",
-                format!("must be a log-odds value > 0 (got {})", self.clamp.max),
-            ));
-        }
-        self.default_model.validate("default_model")?;
-        for (id, m) in &self.models {
-            m.validate(&format!("models[{id:?}]"))?;
+        for t in registry::tunables(self) {
+            if let Some(v) = t.get(self) {
+                t.domain()
+                    .check(v, t.unit())
+                    .map_err(|reason| Problem::BadField {
+                        field: t.error_name(),
+                        reason,
+                    })?;
+            }
         }
         if let Some(e) = &self.extent {
             if !e.origin.is_finite() {

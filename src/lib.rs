@@ -22,6 +22,7 @@ pub mod logodds;
 pub mod model;
 pub mod params;
 pub mod replay;
+pub mod rule;
 pub mod score;
 pub mod session;
 pub mod sim;

@@ -2,7 +2,7 @@
 //!
 //! A cell holds l = ln(p / (1 - p)); fusing an independent reading is an addition of the
 //! reading's own log-odds, and the sum is clamped to [min, max] so a cell can always change
-//! its mind again (the update itself is [`crate::fusion::rule`]). Conversions never produce
+//! its mind again (the update itself is [`crate::rule`]). Conversions never produce
 //! probabilities of exactly 0 or 1 from finite log-odds.
 
 use serde::{Deserialize, Serialize};

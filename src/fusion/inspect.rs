@@ -7,9 +7,9 @@
 //! implementation of the fusion.
 
 use super::MapBuilder;
-use super::rule::Strongest;
 use crate::grid::{CellIndex, Grid};
 use crate::params::FusionRule;
+use crate::rule::Strongest;
 use crate::session::BeamRef;
 use std::collections::HashMap;
 

@@ -5,8 +5,8 @@
 //! Order is frames, then scans as listed, then beams by index, then cells from the origin
 //! (contract section 6). The pieces, in the order a reader meets them:
 //!
-//! - [`rule`]: the cell update itself (add and clamp; OncePerCell's choice), the one place
-//!   every path below updates a cell;
+//! - [`crate::rule`]: the cell update itself (add and clamp; OncePerCell's choice), the one
+//!   place every path below updates a cell;
 //! - `setup`: which beams take part and the plain definition of the cells each touches;
 //! - `extent`: the grid a session and a profile give;
 //! - `plain`: the plain loop, the reference for everything faster;
@@ -17,11 +17,10 @@ mod extent;
 mod fast;
 mod inspect;
 mod plain;
-pub mod rule;
 mod setup;
 
+pub use crate::rule::CellBounds;
 pub use inspect::{CellUpdate, Touch, TouchRecord};
-pub use rule::CellBounds;
 
 use crate::error::{Error, InputError};
 use crate::grid::{DEFAULT_CELL_BUDGET, Grid, GridSpec};

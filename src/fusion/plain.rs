@@ -3,9 +3,9 @@
 //! bit, and it counts updates for the benchmark.
 
 use super::MapBuilder;
-use super::rule::Strongest;
 use crate::grid::Grid;
 use crate::params::FusionRule;
+use crate::rule::Strongest;
 use std::collections::{HashMap, HashSet};
 use std::hash::{BuildHasherDefault, Hasher};
 use std::ops::Range;

@@ -1,9 +1,9 @@
 //! Where a job's cells go: straight into the grid under EveryBeam ([`Apply`]), or into a
 //! frame's strongest increments per cell under OncePerCell ([`FrameBest`]). Both update cells
-//! only through the contract's rule ([`crate::fusion::rule`]).
+//! only through the contract's rule ([`crate::rule`]).
 
 use super::Cells;
-use crate::fusion::rule::{CellBounds, once_per_cell};
+use crate::rule::{CellBounds, once_per_cell};
 
 /// Where the cells of a beam go, by grid index: stretches of cells that all get the free
 /// increment, and single cells.

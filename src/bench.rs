@@ -16,6 +16,7 @@
 
 use crate::error::Error;
 use crate::fusion::{CellBounds, MapBuilder};
+use crate::limits::{MAX_BEAMS_PER_SCAN, MAX_FRAMES, MAX_SIMULATED_READINGS};
 use crate::params::Params;
 use crate::replay::{DEFAULT_SNAPSHOT_BUDGET, Replay};
 use crate::session::Session;
@@ -44,6 +45,55 @@ pub struct BenchOptions {
     pub reps: usize,
     /// Random seeks timed.
     pub seeks: usize,
+}
+
+impl BenchOptions {
+    /// Refuses options the benchmark cannot run with, naming the option and why, before
+    /// anything is simulated.
+    pub fn check(&self) -> Result<(), (String, String)> {
+        let b = &self.building;
+        let bad = |option: &str, why: String| Err((option.to_string(), why));
+        let positive = |v: f64, max: f64| v.is_finite() && v > 0.0 && v <= max;
+        if b.frames == 0 || b.frames > MAX_FRAMES {
+            return bad("--frames", format!("must lie in 1..={MAX_FRAMES}"));
+        }
+        if b.beams == 0 || b.beams > MAX_BEAMS_PER_SCAN {
+            return bad("--beams", format!("must lie in 1..={MAX_BEAMS_PER_SCAN}"));
+        }
+        if (b.frames as u64).saturating_mul(b.beams as u64) > MAX_SIMULATED_READINGS {
+            return bad(
+                "--frames",
+                format!("frames x beams must be at most {MAX_SIMULATED_READINGS} readings"),
+            );
+        }
+        if !positive(b.range, 1000.0) {
+            return bad(
+                "--range",
+                format!("must be > 0 and at most 1000 m (got {})", b.range),
+            );
+        }
+        if !positive(self.resolution, 10.0) {
+            return bad(
+                "--resolution",
+                format!("must be > 0 and at most 10 m (got {})", self.resolution),
+            );
+        }
+        for (option, v) in [("--width", b.width), ("--height", b.height)] {
+            if !positive(v, 10_000.0) {
+                return bad(option, format!("must be > 0 and at most 10000 m (got {v})"));
+            }
+        }
+        if self.threads.is_some_and(|t| t == 0 || t > 4096) {
+            return bad("--threads", "must lie in 1..=4096".into());
+        }
+        if self.reps == 0 || self.reps > 1000 {
+            return bad("--reps", "must lie in 1..=1000".into());
+        }
+        if self.seeks > 100_000 {
+            return bad("--seeks", "must be at most 100000".into());
+        }
+        Ok(())
+    }
 }
 
 impl Default for BenchOptions {
@@ -114,7 +164,7 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     say("simulating the run");
     let t = Instant::now();
     let plan = building_plan(&opts.building);
-    let session = Arc::new(simulate(&plan));
+    let session = Arc::new(simulate(&plan)?);
     let sim_s = t.elapsed().as_secs_f64();
     let params = Params {
         resolution: opts.resolution,
@@ -139,7 +189,7 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
         rayon::ThreadPoolBuilder::new()
             .num_threads(k)
             .build()
-            .map_err(|e| Error::Window(e.to_string()))
+            .map_err(|e| Error::Failed(format!("the thread pool could not start: {e}")))
     };
     let (one, all) = (pool(1)?, pool(threads)?);
     // One one-thread pool per thread, for as many independent one-thread rebuilds at once.

@@ -176,9 +176,28 @@ pub enum Error {
         /// The underlying failure.
         source: std::io::Error,
     },
+    /// The requested grid needs more memory than this machine has (exit status 2).
+    #[error(
+        "{}the map would need {:.1} GB for its cells, more than this machine's {:.1} GB; \
+         coarsen the resolution or fix a smaller extent in the parameters",
+        source_label(input),
+        *bytes as f64 / 1e9,
+        *memory as f64 / 1e9
+    )]
+    OverMemory {
+        /// The input whose beams or metadata ask for the grid, when known.
+        input: Option<String>,
+        /// Bytes the grid's cells need.
+        bytes: u64,
+        /// Physical memory of this machine, bytes.
+        memory: u64,
+    },
     /// The window could not be opened (no display, no OpenGL).
     #[error("the window could not open: {0}")]
     Window(String),
+    /// Something else failed on this machine (exit status 1).
+    #[error("{0}")]
+    Failed(String),
     /// The work was cancelled by a newer request.
     #[error("cancelled")]
     Cancelled,
@@ -201,6 +220,11 @@ impl Error {
     /// Names the input an over-budget grid came from (other errors pass unchanged).
     pub fn for_input(self, label: &str) -> Error {
         match self {
+            Error::OverMemory { bytes, memory, .. } => Error::OverMemory {
+                input: Some(label.to_string()),
+                bytes,
+                memory,
+            },
             Error::OverBudget {
                 width,
                 height,
@@ -220,6 +244,9 @@ impl Error {
 
     /// Whether the error refuses an input (as opposed to a failure of this machine).
     pub fn is_refusal(&self) -> bool {
-        matches!(self, Error::Input(_) | Error::OverBudget { .. })
+        matches!(
+            self,
+            Error::Input(_) | Error::OverBudget { .. } | Error::OverMemory { .. }
+        )
     }
 }

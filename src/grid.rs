@@ -44,6 +44,20 @@ pub fn keep_freed_buffers() {
     }
 }
 
+/// Physical memory of this machine, bytes (Linux; `None` where it cannot be read).
+pub fn physical_memory() -> Option<u64> {
+    let info = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let kb: u64 = info
+        .lines()
+        .find_map(|l| l.strip_prefix("MemTotal:"))?
+        .trim()
+        .trim_end_matches("kB")
+        .trim()
+        .parse()
+        .ok()?;
+    kb.checked_mul(1024)
+}
+
 /// `x.floor() as i64` without a call into the maths library (the baseline x86-64 target has
 /// no rounding instruction): the same value for every finite `x`, saturating like the cast.
 #[inline(always)]
@@ -156,7 +170,8 @@ impl GridSpec {
         })
     }
 
-    /// Refuses a size (in cells, as floats so absurd sizes cannot overflow) over `budget`.
+    /// Refuses a size (in cells, as floats so absurd sizes cannot overflow) over `budget`, or
+    /// one whose cells would not fit in this machine's memory however the budget is set.
     pub fn check_budget(width: f64, height: f64, budget: u64) -> Result<(), Error> {
         let cells = width * height;
         let fits = width.is_finite()
@@ -166,17 +181,25 @@ impl GridSpec {
             && width <= u32::MAX as f64
             && height <= u32::MAX as f64
             && cells <= budget as f64;
-        if fits {
-            Ok(())
-        } else {
-            Err(Error::OverBudget {
+        if !fits {
+            return Err(Error::OverBudget {
                 input: None,
                 width,
                 height,
                 cells,
                 budget,
-            })
+            });
         }
+        let bytes = cells * std::mem::size_of::<f32>() as f64;
+        let memory = physical_memory().unwrap_or(isize::MAX as u64);
+        if bytes > memory as f64 || bytes > isize::MAX as f64 {
+            return Err(Error::OverMemory {
+                input: None,
+                bytes: bytes as u64,
+                memory,
+            });
+        }
+        Ok(())
     }
 
     /// The cell containing world point `p` (metres), whether or not it lies in the grid.

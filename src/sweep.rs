@@ -8,6 +8,7 @@
 
 use crate::fusion::MapBuilder;
 use crate::grid::Grid;
+use crate::limits::MAX_SWEEP_SETTINGS;
 use crate::params::{Params, registry};
 use crate::score::{Score, score};
 use crate::session::Session;
@@ -133,6 +134,8 @@ pub struct SweepResult {
     pub rows: Vec<SweepRow>,
     /// Index of the best row by the objective, if any row has scores.
     pub best: Option<usize>,
+    /// Why nothing was built, when the plan itself was refused.
+    pub refused: Option<String>,
 }
 
 impl SweepResult {
@@ -180,12 +183,42 @@ pub struct SweepPlan {
     pub objective: Objective,
     /// Frames integrated per map.
     pub frames: usize,
+    /// Largest grid a setting may build, cells.
+    pub cell_budget: u64,
 }
 
 impl SweepPlan {
-    /// Number of settings.
+    /// Refuses a plan that varies no parameter or more than two, or whose settings number
+    /// more than [`MAX_SWEEP_SETTINGS`], before anything is built.
+    pub fn check(&self) -> Result<(), String> {
+        if self.vary.is_empty() || self.vary.len() > 2 {
+            return Err(format!(
+                "a sweep varies one or two parameters ({} given)",
+                self.vary.len()
+            ));
+        }
+        let n = self
+            .vary
+            .iter()
+            .try_fold(1usize, |n, v| n.checked_mul(v.steps));
+        match n {
+            Some(n) if n <= MAX_SWEEP_SETTINGS => Ok(()),
+            _ => Err(format!(
+                "{} settings; a sweep builds at most {MAX_SWEEP_SETTINGS}",
+                self.vary
+                    .iter()
+                    .map(|v| v.steps.to_string())
+                    .collect::<Vec<_>>()
+                    .join(" x ")
+            )),
+        }
+    }
+
+    /// Number of settings (saturating; see [`SweepPlan::check`]).
     pub fn len(&self) -> usize {
-        self.vary.iter().map(|v| v.steps).product()
+        self.vary
+            .iter()
+            .fold(1usize, |n, v| n.saturating_mul(v.steps))
     }
 
     /// Whether there is nothing to sweep.
@@ -197,6 +230,14 @@ impl SweepPlan {
 /// Builds each setting's map (in parallel) and scores it against the reference. `done` counts
 /// finished settings; `cancel` stops early (unfinished settings then carry "cancelled").
 pub fn sweep(plan: &SweepPlan, cancel: &AtomicBool, done: &AtomicUsize) -> SweepResult {
+    if let Err(why) = plan.check() {
+        return SweepResult {
+            vary: plan.vary.clone(),
+            rows: Vec::new(),
+            best: None,
+            refused: Some(why),
+        };
+    }
     let SweepPlan {
         session,
         base,
@@ -204,6 +245,7 @@ pub fn sweep(plan: &SweepPlan, cancel: &AtomicBool, done: &AtomicUsize) -> Sweep
         vary,
         objective,
         frames,
+        cell_budget,
     } = plan;
     let (objective, frames) = (*objective, *frames);
     let rows: Vec<SweepRow> = settings(vary)
@@ -218,7 +260,8 @@ pub fn sweep(plan: &SweepPlan, cancel: &AtomicBool, done: &AtomicUsize) -> Sweep
                     set_param(&mut p, &v.name, *x)?;
                 }
                 p.validate().map_err(|e| e.to_string())?;
-                let builder = MapBuilder::new(session.clone(), p).map_err(|e| e.to_string())?;
+                let builder = MapBuilder::with_budget(session.clone(), p, *cell_budget)
+                    .map_err(|e| e.to_string())?;
                 let grid = builder.build(frames);
                 score(&grid, reference).map_err(|e| e.to_string())
             })();
@@ -237,6 +280,7 @@ pub fn sweep(plan: &SweepPlan, cancel: &AtomicBool, done: &AtomicUsize) -> Sweep
         vary: vary.clone(),
         rows,
         best,
+        refused: None,
     }
 }
 

@@ -297,7 +297,7 @@ impl GridscopeApp {
             return;
         }
         let loaded = if path.to_string_lossy().ends_with(".plan.ron") {
-            crate::sim::FloorPlan::load(path).map(|plan| crate::sim::simulate(&plan))
+            crate::sim::FloorPlan::load(path).and_then(|plan| crate::sim::simulate(&plan))
         } else {
             Session::load(path)
         };

@@ -139,7 +139,12 @@ impl SweepPanel {
             vary,
             objective: self.objective,
             frames,
+            cell_budget: crate::grid::DEFAULT_CELL_BUDGET,
         };
+        if let Err(why) = plan.check() {
+            self.problem = Some(why);
+            return;
+        }
         self.problem = None;
         self.result = None;
         let total = plan.len();

@@ -184,14 +184,16 @@ pub fn meta_text(spec: &GridSpec, provenance: Option<&Provenance>) -> String {
     text.expect("metadata always serialises")
 }
 
-/// Writes `PREFIX.npy`, `PREFIX.png`, `PREFIX.map.ron` (and `PREFIX.pgm` if asked), atomically.
-/// Returns the paths written.
-pub fn write_bundle(
+/// The files of a bundle: `PREFIX.npy`, `PREFIX.png`, `PREFIX.map.ron` (and `PREFIX.pgm` if
+/// asked) with their bytes, and the parts of an earlier bundle under this prefix that this one
+/// does not have (to be removed with the write, so the bundle stays one whole).
+#[allow(clippy::type_complexity)]
+pub fn bundle_files(
     prefix: &Path,
     grid: &Grid,
     provenance: Option<&Provenance>,
     options: ExportOptions,
-) -> Result<Vec<PathBuf>, Error> {
+) -> Result<(Vec<(PathBuf, Vec<u8>)>, Vec<PathBuf>), Error> {
     let png = png_bytes(grid).map_err(|e| Error::Write {
         file: with_suffix(prefix, ".png"),
         source: std::io::Error::other(e),
@@ -204,13 +206,24 @@ pub fn write_bundle(
             meta_text(grid.spec(), provenance).into_bytes(),
         ),
     ];
-    // A bundle is its files together: a `.pgm` from an earlier export goes when this one has none.
     let mut stale = Vec::new();
     if options.pgm {
         files.push((with_suffix(prefix, ".pgm"), pgm_bytes(grid)));
     } else {
         stale.push(with_suffix(prefix, ".pgm"));
     }
+    Ok((files, stale))
+}
+
+/// Writes the bundle of [`bundle_files`] atomically, as one whole: either every new file is
+/// there afterwards or the previous bundle is, untouched. Returns the paths written.
+pub fn write_bundle(
+    prefix: &Path,
+    grid: &Grid,
+    provenance: Option<&Provenance>,
+    options: ExportOptions,
+) -> Result<Vec<PathBuf>, Error> {
+    let (files, stale) = bundle_files(prefix, grid, provenance, options)?;
     let parts: Vec<(PathBuf, &[u8])> = files.iter().map(|(p, b)| (p.clone(), &b[..])).collect();
     write_group(&parts, &stale)?;
     Ok(files.into_iter().map(|(p, _)| p).collect())

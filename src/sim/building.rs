@@ -240,7 +240,7 @@ mod tests {
         };
         let plan = building_plan(&spec);
         plan.validate().unwrap();
-        let s = super::super::simulate(&plan);
+        let s = super::super::simulate(&plan).unwrap();
         assert!(
             (s.frames.len() as i64 - 50).abs() <= 1,
             "{}",

@@ -15,7 +15,7 @@ pub use building::{BuildingSpec, building_plan};
 pub use plan::{FloorPlan, Material, Noise, Route, SimSensor, Wall, Window};
 pub use rng::Rng;
 
-use crate::error::Error;
+use crate::error::{Error, InputError};
 use crate::footprint::RayWalk;
 use crate::geometry::{Point2, Pose2, wrap_angle};
 use crate::grid::{DEFAULT_CELL_BUDGET, Grid, GridSpec, WorldBox};
@@ -47,6 +47,8 @@ struct Scene<'a> {
     walls: Vec<&'a Wall>,
     buckets: GridSpec,
     filed: Vec<Vec<u32>>,
+    /// Every wall and the route lie inside this box; a ray that leaves it meets nothing more.
+    bounds: WorldBox,
 }
 
 impl<'a> Scene<'a> {
@@ -90,6 +92,7 @@ impl<'a> Scene<'a> {
             walls,
             buckets,
             filed,
+            bounds,
         }
     }
 
@@ -105,6 +108,8 @@ impl<'a> Scene<'a> {
         rng: &mut Rng,
     ) -> Option<f64> {
         let dir = (heading.cos(), heading.sin());
+        // Walk no further than where the ray leaves the scene (however far the sensor reaches).
+        let max = max.min(exit_distance(origin, dir, &self.bounds) + 1.0);
         let walk = RayWalk::from_direction(&self.buckets, origin, dir.0, dir.1, max);
         let mut hits: Vec<(f64, Material)> = Vec::new();
         let mut found = None;
@@ -145,15 +150,16 @@ impl<'a> Scene<'a> {
     }
 }
 
-/// The robot's pose at each frame time along a route.
-pub fn route_poses(route: &Route) -> Vec<(f64, Pose2)> {
-    // Build the motion as pieces: turn in place, then drive.
-    struct Piece {
-        start: f64,
-        duration: f64,
-        from: Pose2,
-        to: Pose2,
-    }
+/// One piece of a route's motion: a turn in place or a straight drive.
+struct Piece {
+    start: f64,
+    duration: f64,
+    from: Pose2,
+    to: Pose2,
+}
+
+/// The route's motion as pieces, and its total duration in seconds.
+fn route_pieces(route: &Route) -> (Vec<Piece>, f64) {
     let mut pieces = Vec::new();
     let wp = &route.waypoints;
     let first_heading = (wp[1].y - wp[0].y).atan2(wp[1].x - wp[0].x);
@@ -189,8 +195,39 @@ pub fn route_poses(route: &Route) -> Vec<(f64, Pose2)> {
             pose = to;
         }
     }
-    let total = t;
-    let count = (total * route.rate).floor() as usize + 1;
+    (pieces, t)
+}
+
+/// How many frames a route gives: one at t = 0 and one every 1 / rate seconds after, up to its
+/// duration; `None` when that is not a finite count.
+pub fn route_frame_count(route: &Route) -> Option<u64> {
+    let (_, total) = route_pieces(route);
+    let n = (total * route.rate).floor();
+    (0.0..1e18).contains(&n).then(|| n as u64 + 1)
+}
+
+/// Distance along a ray from a point inside (or on) a box to where it leaves the box.
+fn exit_distance(origin: Point2, dir: (f64, f64), b: &WorldBox) -> f64 {
+    let along = |o: f64, d: f64, lo: f64, hi: f64| {
+        if d > 0.0 {
+            (hi - o) / d
+        } else if d < 0.0 {
+            (lo - o) / d
+        } else {
+            f64::INFINITY
+        }
+    };
+    along(origin.x, dir.0, b.min.x, b.max.x)
+        .min(along(origin.y, dir.1, b.min.y, b.max.y))
+        .max(0.0)
+}
+
+/// The robot's pose at each frame time along a route (a route checked by
+/// [`FloorPlan::validate`], whose frame count is bounded).
+pub fn route_poses(route: &Route) -> Vec<(f64, Pose2)> {
+    let (pieces, _) = route_pieces(route);
+    let count = route_frame_count(route).unwrap_or(0) as usize;
+    let last = pieces.last().map(|p| p.to);
     let mut out = Vec::with_capacity(count);
     let mut k = 0;
     for i in 0..count {
@@ -207,7 +244,7 @@ pub fn route_poses(route: &Route) -> Vec<(f64, Pose2)> {
                     wrap_angle(piece.from.theta + u * (piece.to.theta - piece.from.theta)),
                 )
             }
-            None => pose,
+            None => last.unwrap_or_default(),
         };
         out.push((ti, p));
     }
@@ -219,11 +256,14 @@ fn to_mm(r: f64) -> f32 {
     ((r * 1000.0).round() / 1000.0) as f32
 }
 
-/// Simulates the plan's run into a session.
-pub fn simulate(plan: &FloorPlan) -> Session {
+/// Simulates the plan's run into a session. The plan is checked first (a plan read from a file
+/// already was): its sensors, and that its run stays within the limits on frames and readings.
+pub fn simulate(plan: &FloorPlan) -> Result<Session, InputError> {
+    plan.validate()
+        .map_err(|p| InputError::new(plan.name.clone(), p))?;
     let sensors = plan.sensors.iter().map(|s| s.sensor.clone()).collect();
     let mut session = Session::with_sensors(plan.name.clone(), plan.notes.clone(), sensors)
-        .expect("plan sensors are validated");
+        .map_err(|p| InputError::new(plan.name.clone(), p))?;
     let mut rng = Rng::new(plan.seed);
     let mut buffers: Vec<Vec<f32>> = plan
         .sensors
@@ -297,9 +337,9 @@ pub fn simulate(plan: &FloorPlan) -> Session {
             .collect();
         session
             .push_frame(t, pose, &scans)
-            .expect("simulated frames follow the contract");
+            .map_err(|p| InputError::new(plan.name.clone(), p))?;
     }
-    session
+    Ok(session)
 }
 
 /// Whether `p` lies inside the polygon (even-odd rule).
@@ -427,7 +467,7 @@ mod tests {
         // (x, y) at heading h meets the first wall at min over the walls it faces of
         // (wall - x) / cos h or (wall - y) / sin h.
         let plan = room_plan();
-        let s = simulate(&plan);
+        let s = simulate(&plan).unwrap();
         assert!(s.frames.len() > 20);
         let sensor = &s.sensors[0];
         for f in &s.frames {

@@ -8,6 +8,7 @@ use crate::error::{InputError, Problem};
 use crate::geometry::Point2;
 use crate::io::doc;
 use crate::io::read::read_text;
+use crate::limits::{MAX_FRAMES, MAX_SIMULATED_READINGS};
 use crate::session::Sensor;
 use serde::{Deserialize, Serialize};
 use std::path::Path;
@@ -236,15 +237,51 @@ impl FloorPlan {
                 ));
             }
         }
-        if !(self.reference_resolution.is_finite() && self.reference_resolution > 0.0) {
-            return Err(bad("reference_resolution".into(), "must be > 0 metres"));
-        }
         // Sensor rules are the session's rules.
         crate::session::Session::with_sensors(
             String::new(),
             String::new(),
             self.sensors.iter().map(|s| s.sensor.clone()).collect(),
         )?;
+        let frames = super::route_frame_count(r).unwrap_or(u64::MAX);
+        if frames > MAX_FRAMES as u64 {
+            return Err(bad(
+                "route".into(),
+                format!(
+                    "the route takes {} frames at this speed and rate; at most {MAX_FRAMES} \
+                     are simulated",
+                    if frames == u64::MAX {
+                        "more".to_string()
+                    } else {
+                        frames.to_string()
+                    }
+                ),
+            ));
+        }
+        let casts_per_frame: u64 = self
+            .sensors
+            .iter()
+            .map(|s| {
+                let rays = if s.sensor.kind == crate::session::SensorKind::Cone {
+                    s.cone_rays as u64
+                } else {
+                    1
+                };
+                (s.sensor.beam_count() as u64).saturating_mul(rays)
+            })
+            .fold(0u64, u64::saturating_add);
+        if frames.saturating_mul(casts_per_frame) > MAX_SIMULATED_READINGS {
+            return Err(bad(
+                "sensors".into(),
+                format!(
+                    "{frames} frames of {casts_per_frame} rays each; a simulation casts at \
+                     most {MAX_SIMULATED_READINGS}"
+                ),
+            ));
+        }
+        if !(self.reference_resolution.is_finite() && self.reference_resolution > 0.0) {
+            return Err(bad("reference_resolution".into(), "must be > 0 metres"));
+        }
         Ok(())
     }
 }

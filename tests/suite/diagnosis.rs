@@ -256,6 +256,7 @@ fn sweep_finds_the_known_best_clamp() {
         vary: vec![Vary::parse("clamp.max=1:8:15").unwrap()],
         objective: Objective::CrossEntropy,
         frames: shut + open,
+        cell_budget: gridscope::grid::DEFAULT_CELL_BUDGET,
     };
     let r = sweep(&plan, &AtomicBool::new(false), &AtomicUsize::new(0));
     let best = r.best.expect("a best setting");

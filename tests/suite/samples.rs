@@ -28,7 +28,7 @@ fn embedded_demos_are_the_files_in_sample_sessions() {
 fn sessions_are_what_the_simulator_makes_of_their_plans() {
     for d in DEMOS {
         let plan = FloorPlan::load(&samples_dir().join(format!("{}.plan.ron", d.name))).unwrap();
-        let fresh = simulate(&plan);
+        let fresh = simulate(&plan).unwrap();
         let stored = Session::from_ron_str(d.session, d.name).unwrap();
         assert_eq!(fresh.frames, stored.frames, "{}", d.name);
         for f in &fresh.frames {

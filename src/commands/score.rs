@@ -1,0 +1,73 @@
+//! `gridscope score`: a map bundle against a reference bundle.
+
+use super::{load_map, show};
+use crate::error::{Error, InputError, Problem};
+use crate::grid::DEFAULT_CELL_BUDGET;
+use std::io::Write;
+use std::path::PathBuf;
+
+/// Arguments of `gridscope score`.
+#[derive(clap::Args, Clone, Debug)]
+pub struct ScoreArgs {
+    /// Map bundle prefix (or its .npy / .map.ron).
+    pub map: PathBuf,
+    /// Reference bundle prefix, or `demo:NAME` for a demo's reference.
+    #[arg(long)]
+    pub reference: PathBuf,
+    /// Print JSON instead of key=value lines.
+    #[arg(long)]
+    pub json: bool,
+    /// Also print the confusion counts.
+    #[arg(long)]
+    pub confusion: bool,
+    /// Refuse grids larger than this many cells.
+    #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
+    pub cell_budget: u64,
+}
+
+/// Scores a map bundle against a reference and prints `key=value` lines (or JSON).
+pub fn score(args: &ScoreArgs, out: &mut dyn Write) -> Result<(), Error> {
+    let map = load_map(&args.map, args.cell_budget)?;
+    let reference = load_map(&args.reference, args.cell_budget)?;
+    let s = crate::score::score(&map, &reference).map_err(|e| {
+        InputError::new(
+            format!(
+                "{} against {}",
+                args.map.display(),
+                args.reference.display()
+            ),
+            Problem::Malformed(e.to_string()),
+        )
+    })?;
+    let mut pairs: Vec<(&str, String)> = vec![
+        ("cells_compared", s.cells_compared.to_string()),
+        ("cross_entropy_bits", show(s.cross_entropy_bits)),
+        ("brier", show(s.brier)),
+        ("auc", show(s.auc)),
+        ("precision", show(s.precision)),
+        ("recall", show(s.recall)),
+    ];
+    if args.confusion {
+        let c = s.confusion;
+        pairs.extend([
+            ("true_occupied", c.true_occupied.to_string()),
+            ("false_occupied", c.false_occupied.to_string()),
+            ("true_free", c.true_free.to_string()),
+            ("false_free", c.false_free.to_string()),
+            ("unknown_occupied", c.unknown_occupied.to_string()),
+            ("unknown_free", c.unknown_free.to_string()),
+        ]);
+    }
+    if args.json {
+        let body: Vec<String> = pairs
+            .iter()
+            .map(|(k, v)| format!("\"{k}\": {}", if v == "nan" { "null" } else { v.as_str() }))
+            .collect();
+        let _ = writeln!(out, "{{{}}}", body.join(", "));
+    } else {
+        for (k, v) in pairs {
+            let _ = writeln!(out, "{k}={v}");
+        }
+    }
+    Ok(())
+}

@@ -1,28 +1,44 @@
 //! gridscope: build, replay and inspect 2D occupancy grid maps from posed range scans.
 //!
 //! The core reads in one sitting, in the order data flows: a [`session`] of posed scans, the
-//! [`footprint`] of each beam on the [`grid`], the inverse sensor [`model`] that turns a
-//! reading into log-odds increments, the [`fusion`] that adds them up with clamping, and the
-//! [`export`] of the finished map; [`replay`] seeks within a run. [`sim`] makes sessions from floor plans of our own, and
-//! [`commands`] holds the batch commands of the command line. Only [`app`] knows about the
-//! window; nothing else imports egui.
+//! footprint of each beam on the [`grid`] (exact traversal for narrow beams, sectors for wide
+//! ones), the inverse sensor model that turns a reading into log-odds increments, the fusion
+//! ([`MapBuilder`]) that adds them up through the one cell rule ([`CellBounds`]), and the
+//! [`export`] of the finished map. [`replay`] seeks within a run, [`score`] measures a map
+//! against a reference, [`sweep`] tries parameter settings, [`sim`] makes sessions from floor
+//! plans of our own, and [`commands`] is the command line. Only [`app`] knows about the window;
+//! nothing else imports egui.
+//!
+//! ```no_run
+//! use gridscope::{MapBuilder, Params, Session};
+//! use std::sync::Arc;
+//!
+//! let session = Arc::new(Session::load("run.session.ron".as_ref())?);
+//! let params = Params::load("run.params.ron".as_ref())?;
+//! let builder = MapBuilder::new(session.clone(), params)?;
+//! let grid = builder.build(session.frames.len());
+//! println!("{} x {} cells", grid.spec().width, grid.spec().height);
+//! # Ok::<(), gridscope::Error>(())
+//! ```
+#![warn(missing_docs)]
+
 pub mod app;
-pub mod bench;
+pub(crate) mod bench;
 pub mod commands;
 pub mod demo;
-pub mod error;
+mod error;
 pub mod export;
-pub mod footprint;
-pub mod fusion;
-pub mod geometry;
+pub(crate) mod footprint;
+pub(crate) mod fusion;
+mod geometry;
 pub mod grid;
 pub(crate) mod io;
 pub mod limits;
-pub mod logodds;
-pub mod model;
+mod logodds;
+pub(crate) mod model;
 pub mod params;
 pub mod replay;
-pub mod rule;
+pub(crate) mod rule;
 pub mod score;
 pub mod session;
 pub mod sim;
@@ -35,4 +51,5 @@ pub use geometry::{Point2, Pose2};
 pub use grid::{CellIndex, Grid, GridSpec};
 pub use logodds::{Clamp, logit, probability};
 pub use params::{FusionRule, ModelSpec, NoReturnRule, Params};
+pub use rule::CellBounds;
 pub use session::{BeamRef, Reading, SensorKind, Session};

@@ -175,4 +175,28 @@ mod tests {
         s.add(-0.9, 'c');
         assert_eq!(s.chosen(), (-0.9, 'b'));
     }
+
+    use proptest::prelude::*;
+
+    /// Increments of one cell in a frame, and the same increments in another order.
+    fn increments_and_a_permutation() -> impl Strategy<Value = (Vec<f32>, Vec<f32>)> {
+        proptest::collection::vec(-3.0f32..3.0, 1..12)
+            .prop_flat_map(|v| (Just(v.clone()), Just(v).prop_shuffle()))
+    }
+
+    proptest! {
+        /// The contract lets OncePerCell's choice ignore the order of a frame's beams: the
+        /// increment chosen from any permutation of the same increments is the same.
+        #[test]
+        fn once_per_cell_ignores_the_order_of_a_frames_beams(
+            (incs, other) in increments_and_a_permutation()
+        ) {
+            let choose = |v: &[f32]| {
+                let mut s = Strongest::new(v[0], ());
+                v[1..].iter().for_each(|&x| s.add(x, ()));
+                s.chosen().0
+            };
+            prop_assert_eq!(choose(&incs).to_bits(), choose(&other).to_bits());
+        }
+    }
 }

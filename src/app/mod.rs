@@ -2,7 +2,7 @@
 //!
 //! Design decision: panels never reach into each other. Each draws from read-only data and
 //! returns [`Action`]s; [`GridscopeApp::apply`] carries them out after the panels are drawn.
-//! Fusion never runs in a UI frame: the [`worker`] replays the session on its own thread and
+//! Fusion never runs in a UI frame: the rebuild worker replays the session on its own thread and
 //! the window shows the newest grid it has been sent.
 
 mod beam_panel;

@@ -5,4 +5,7 @@ mod cone;
 mod ray;
 
 pub use cone::{ConeAngle, ConeCell, cone_bounds, cone_cells, cone_weight, for_each_cone_cell};
-pub use ray::{RayWalk, UNITS_PER_METRE, crossings_before, metres, param, ray_bounds};
+pub use ray::{RayWalk, crossings_before, metres, param, ray_bounds};
+
+#[cfg(test)]
+mod traversal_tests;

@@ -135,19 +135,6 @@ impl RayWalk {
         self.row_step
     }
 
-    /// The cell after `c` along the segment, or `None` when the segment ends inside `c`.
-    /// At an exact corner the row step is taken first.
-    #[inline(always)]
-    pub fn next(&self, c: CellIndex) -> Option<CellIndex> {
-        let tc = self.leave_col(c.col);
-        let tr = self.leave_row(c.row);
-        if tc < tr {
-            (tc < self.len).then_some(CellIndex::new(c.col + self.step_col, c.row))
-        } else {
-            (tr < self.len).then_some(CellIndex::new(c.col, c.row + self.step_row))
-        }
-    }
-
     /// Calls `visit(cell, t_enter)` on every cell of the segment, in order from the origin,
     /// with the fixed-point parameter at which it is entered (0 for the first), until `visit`
     /// returns `false` or the segment ends. Steps are integer additions.
@@ -248,8 +235,9 @@ impl RayWalk {
         self.for_each_entered(|c, _| visit(c));
     }
 
-    /// All cells of the segment, in order (for tests and inspection; the fusion loop walks
-    /// with [`RayWalk::for_each`]).
+    /// All cells of the segment, in order (for tests; the fusion walks with
+    /// [`RayWalk::for_each`]).
+    #[cfg(test)]
     pub fn cells(&self) -> Vec<CellIndex> {
         let mut v = Vec::new();
         self.for_each(|c| {

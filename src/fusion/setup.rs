@@ -166,7 +166,9 @@ impl CentreOffsets {
 
 impl MapBuilder {
     /// The world pose of `sensor` when it took its scan in frame `f`, with the profile's
-    /// corrections of its mount and clock applied (see [`scan_pose`]).
+    /// corrections of its mount and clock applied: the mount moved by its corrections, and
+    /// the robot pose taken at the frame's time plus the clock offset (interpolated between
+    /// frames, held at the ends of the run).
     pub fn sensor_pose(&self, f: usize, sensor: usize) -> Pose2 {
         scan_pose(&self.session, &self.corrections, f, sensor)
     }

@@ -306,4 +306,99 @@ mod tests {
             Problem::UnknownFormat { found: 2 }
         ));
     }
+
+    mod round_trip {
+        use super::super::*;
+        use proptest::prelude::*;
+
+        fn model() -> impl Strategy<Value = ModelSpec> {
+            prop_oneof![
+                (0.001f64..0.3, 0.501f64..0.999, 0.001f64..0.499, 0.0f64..6.0).prop_map(
+                    |(sigma, p_occ, p_free, cutoff)| ModelSpec::Gaussian {
+                        sigma,
+                        p_occ,
+                        p_free,
+                        cutoff
+                    }
+                ),
+                (0.01f64..1.0, 0.501f64..0.999, 0.001f64..0.499).prop_map(
+                    |(thickness, p_occ, p_free)| ModelSpec::Band {
+                        thickness,
+                        p_occ,
+                        p_free
+                    }
+                ),
+            ]
+        }
+
+        fn profile() -> impl Strategy<Value = Params> {
+            (
+                (0.01f64..0.5, 0.01f64..0.99, -20.0f64..-0.01, 0.01f64..60.0),
+                (
+                    any::<bool>(),
+                    any::<bool>(),
+                    model(),
+                    proptest::option::of(model()),
+                ),
+                proptest::option::of((-100.0f64..100.0, 1u32..5000, 1u32..5000)),
+                (
+                    proptest::collection::vec((0usize..500, 0usize..50), 0..3),
+                    -0.3f64..0.3,
+                ),
+            )
+                .prop_map(
+                    |((res, prior, lo, hi), (once, ignore, m, own), extent, (frames, dx))| {
+                        let mut p = Params {
+                            resolution: res,
+                            prior,
+                            clamp: Clamp { min: lo, max: hi },
+                            fusion: if once {
+                                FusionRule::OncePerCell
+                            } else {
+                                FusionRule::EveryBeam
+                            },
+                            no_return: if ignore {
+                                NoReturnRule::Ignore
+                            } else {
+                                NoReturnRule::Clear
+                            },
+                            default_model: m,
+                            ..Params::default()
+                        };
+                        if let Some(own) = own {
+                            p.models.insert("sonar ring".into(), own);
+                        }
+                        p.extent = extent.map(|(o, w, h)| Extent {
+                            origin: Point2::new(o, -o / 3.0),
+                            width: w,
+                            height: h,
+                        });
+                        p.exclude.frames = frames.into_iter().map(|(a, n)| a..=a + n).collect();
+                        if dx != 0.0 {
+                            p.calibration.insert(
+                                "front".into(),
+                                SensorCorrection {
+                                    mount_x: dx,
+                                    time_offset: dx / 10.0,
+                                    ..Default::default()
+                                },
+                            );
+                        }
+                        p
+                    },
+                )
+        }
+
+        proptest! {
+            #![proptest_config(ProptestConfig { cases: 200, failure_persistence: None, ..ProptestConfig::default() })]
+
+            /// A valid profile written as text reads back equal.
+            #[test]
+            fn written_profiles_read_back_the_same(p in profile()) {
+                prop_assert!(p.validate().is_ok());
+                let back = Params::from_ron_str(&p.to_ron_string(), "again").unwrap();
+                prop_assert_eq!(back, p);
+            }
+        }
+    }
 }

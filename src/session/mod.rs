@@ -541,4 +541,102 @@ mod tests {
             }
         ));
     }
+
+    mod round_trip {
+        use super::super::*;
+        use proptest::prelude::*;
+
+        fn reading() -> impl Strategy<Value = f32> {
+            prop_oneof![
+                8 => -1.0f32..30.0,
+                1 => Just(f32::INFINITY),
+                1 => Just(f32::NEG_INFINITY),
+                1 => Just(f32::NAN),
+            ]
+        }
+
+        fn sensor(k: usize) -> impl Strategy<Value = Sensor> {
+            (
+                any::<bool>(),
+                1usize..5,
+                -3.0f64..3.0,
+                0.01f64..0.5,
+                any::<bool>(),
+            )
+                .prop_map(move |(cone, count, start, step, list)| Sensor {
+                    id: format!("s{k} \"q\""),
+                    kind: if cone {
+                        SensorKind::Cone
+                    } else {
+                        SensorKind::Ray
+                    },
+                    mount: Pose2::new(start / 10.0, -start / 7.0, step),
+                    angles: if list {
+                        BeamAngles::List((0..count).map(|i| start + i as f64 * step).collect())
+                    } else {
+                        BeamAngles::Fan { start, step, count }
+                    },
+                    range_min: step / 10.0,
+                    range_max: 5.0 + start.abs(),
+                    cone_width: if cone { step } else { 0.0 },
+                })
+        }
+
+        /// A session of one to three sensors and a few frames, each holding some of the
+        /// sensors in some order, with ranges that include the special values.
+        fn session() -> impl Strategy<Value = Session> {
+            (1usize..4)
+                .prop_flat_map(|n| (0..n).map(sensor).collect::<Vec<_>>())
+                .prop_flat_map(|sensors| {
+                    let n = sensors.len();
+                    let beams: Vec<usize> = sensors.iter().map(|s| s.beam_count()).collect();
+                    let frame = (
+                        0.0f64..0.5,
+                        (-50.0f64..50.0, -50.0f64..50.0, -7.0f64..7.0),
+                        Just((0..n).collect::<Vec<usize>>()).prop_shuffle(),
+                        0..=n,
+                        beams
+                            .iter()
+                            .map(|&b| proptest::collection::vec(reading(), b))
+                            .collect::<Vec<_>>(),
+                    );
+                    (Just(sensors), proptest::collection::vec(frame, 0..6))
+                })
+                .prop_map(|(sensors, frames)| {
+                    let mut s =
+                        Session::with_sensors("round \u{e9}".into(), "n".into(), sensors).unwrap();
+                    let mut t = 0.0;
+                    for (dt, (x, y, th), order, keep, ranges) in frames {
+                        t += dt;
+                        let ids: Vec<String> = s.sensors.iter().map(|x| x.id.clone()).collect();
+                        let scans: Vec<(&str, &[f32])> = order[..keep]
+                            .iter()
+                            .map(|&k| (ids[k].as_str(), &ranges[k][..]))
+                            .collect();
+                        s.push_frame(t, Pose2::new(x, y, th), &scans).unwrap();
+                    }
+                    s
+                })
+        }
+
+        proptest! {
+            #![proptest_config(ProptestConfig { cases: 120, failure_persistence: None, ..ProptestConfig::default() })]
+
+            /// The writer's text reads back to the same session: sensors, frames, and every
+            /// reading to the bit (NaN as NaN).
+            #[test]
+            fn written_sessions_read_back_the_same(s in session()) {
+                let back = Session::from_ron_str(&s.to_ron_string(), "again").unwrap();
+                prop_assert_eq!(&back.sensors, &s.sensors);
+                prop_assert_eq!(&back.frames, &s.frames);
+                for f in &s.frames {
+                    for sc in &f.scans {
+                        for (a, b) in s.ranges(*sc).iter().zip(back.ranges(*sc)) {
+                            prop_assert!(a.to_bits() == b.to_bits() || (a.is_nan() && b.is_nan()));
+                        }
+                    }
+                }
+            }
+        }
+    }
 }

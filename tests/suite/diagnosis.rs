@@ -4,11 +4,11 @@
 use super::scratch;
 use gridscope::demo::DEMOS;
 use gridscope::export::{ExportOptions, write_bundle};
-use gridscope::geometry::{Point2, Pose2};
 use gridscope::session::{BeamAngles, Sensor};
 use gridscope::sweep::{Objective, SweepPlan, Vary, sweep};
 use gridscope::{
-    Clamp, Grid, GridSpec, MapBuilder, ModelSpec, Params, SensorKind, Session, load_bundle, logit,
+    Clamp, Grid, GridSpec, MapBuilder, ModelSpec, Params, Point2, Pose2, SensorKind, Session,
+    load_bundle, logit,
 };
 use std::process::Command;
 use std::sync::Arc;

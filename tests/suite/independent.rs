@@ -7,7 +7,6 @@
 //! shares only the session data structure and the grid geometry with gridscope.
 
 use super::{TestRng, enters_box};
-use gridscope::geometry::wrap_angle;
 use gridscope::params::Exclusions;
 use gridscope::session::{BeamAngles, Sensor};
 use gridscope::{
@@ -133,6 +132,16 @@ pub fn random_params(r: &mut TestRng) -> Params {
 }
 
 // ----- the independent implementation --------------------------------------------------------
+
+/// An angle in radians wrapped to [-pi, pi].
+fn wrap_angle(a: f64) -> f64 {
+    let w = a.rem_euclid(std::f64::consts::TAU);
+    if w > std::f64::consts::PI {
+        w - std::f64::consts::TAU
+    } else {
+        w
+    }
+}
 
 fn logit(p: f64) -> f64 {
     (p / (1.0 - p)).ln()

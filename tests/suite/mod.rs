@@ -5,7 +5,6 @@ mod diagnosis;
 mod independent;
 mod parallel;
 mod samples;
-mod traversal;
 mod window;
 
 use std::path::{Path, PathBuf};

@@ -26,15 +26,6 @@ pub struct Clamp {
     pub max: f64,
 }
 
-impl Default for Clamp {
-    fn default() -> Self {
-        Self {
-            min: -2.0,
-            max: 3.5,
-        }
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -332,19 +332,20 @@ mod tests {
         // Thrun, Burgard & Fox, Probabilistic Robotics (2005), Table 9.2 (inverse range sensor
         // model), read with alpha = thickness: beyond z + alpha/2 the cell keeps its prior (no
         // change, p = 0.5 here); within alpha/2 of z it is occupied; in front of that, free.
+        // The probabilities are the file contract's example band model (section 3).
         let spec = ModelSpec::Band {
             thickness: 0.1,
-            p_occ: 0.7,
-            p_free: 0.4,
+            p_occ: 0.68,
+            p_free: 0.38,
         };
         let m = PreparedModel::new(spec);
         let z = 3.0;
-        assert_eq!(hit_probability(&spec, 2.0, z), 0.4);
-        assert_eq!(hit_probability(&spec, 2.96, z), 0.7);
-        assert_eq!(hit_probability(&spec, 3.04, z), 0.7);
+        assert_eq!(hit_probability(&spec, 2.0, z), 0.38);
+        assert_eq!(hit_probability(&spec, 2.96, z), 0.68);
+        assert_eq!(hit_probability(&spec, 3.04, z), 0.68);
         assert_eq!(hit_probability(&spec, 3.06, z), 0.5);
-        assert!((m.hit_increment(2.0, z) - logit(0.4)).abs() < 1e-15);
-        assert!((m.hit_increment(3.0, z) - logit(0.7)).abs() < 1e-15);
+        assert!((m.hit_increment(2.0, z) - logit(0.38)).abs() < 1e-15);
+        assert!((m.hit_increment(3.0, z) - logit(0.68)).abs() < 1e-15);
         assert_eq!(m.hit_increment(3.2, z), 0.0);
         assert!((m.hit_reach(z) - 3.05).abs() < 1e-12);
         assert_eq!(m.free_below(z), 2.95);

@@ -5,6 +5,7 @@
 //! tunables ([`registry`]), so the window, the command line and the sweep refuse the same
 //! things with the same words.
 
+pub mod defaults;
 mod model_spec;
 pub mod registry;
 
@@ -136,7 +137,7 @@ impl Default for Params {
             format: 1,
             resolution: 0.05,
             prior: 0.5,
-            clamp: Clamp::default(),
+            clamp: defaults::clamp(),
             fusion: FusionRule::EveryBeam,
             no_return: NoReturnRule::Clear,
             default_model: ModelSpec::default(),
@@ -233,11 +234,11 @@ mod tests {
         format: 1,
         resolution: 0.05,
         prior: 0.5,
-        clamp: (min: -2.0, max: 3.5),
+        clamp: (min: -2.4, max: 3.2),
         fusion: EveryBeam,
         no_return: Clear,
         default_model: Gaussian(sigma: 0.05, p_occ: 0.8, p_free: 0.35, cutoff: 3.0),
-        models: { "sonar_ring": Band(thickness: 0.10, p_occ: 0.7, p_free: 0.4) },
+        models: { "sonar_ring": Band(thickness: 0.10, p_occ: 0.68, p_free: 0.38) },
         extent: None,
     )"#;
 
@@ -248,8 +249,8 @@ mod tests {
             p.model_for("sonar_ring"),
             &ModelSpec::Band {
                 thickness: 0.10,
-                p_occ: 0.7,
-                p_free: 0.4
+                p_occ: 0.68,
+                p_free: 0.38
             }
         );
         assert_eq!(p.model_for("front"), &p.default_model);
@@ -269,8 +270,8 @@ mod tests {
         let cases = [
             ("resolution: 0.05", "resolution: 0.0", "resolution"),
             ("prior: 0.5", "prior: 1.0", "prior"),
-            ("min: -2.0", "min: 0.5", "clamp.min"),
-            ("max: 3.5", "max: -1.0", "clamp.max"),
+            ("min: -2.4", "min: 0.5", "clamp.min"),
+            ("max: 3.2", "max: -1.0", "clamp.max"),
             ("sigma: 0.05", "sigma: -0.05", "default_model.sigma"),
             ("p_occ: 0.8", "p_occ: 0.4", "default_model.p_occ"),
             ("p_free: 0.35", "p_free: 0.6", "default_model.p_free"),
@@ -280,7 +281,7 @@ mod tests {
                 "thickness: 0.0",
                 "models[\"sonar_ring\"].thickness",
             ),
-            ("p_occ: 0.7", "p_occ: 1.0", "models[\"sonar_ring\"].p_occ"),
+            ("p_occ: 0.68", "p_occ: 1.0", "models[\"sonar_ring\"].p_occ"),
         ];
         for (from, to, field) in cases {
             let text = EXAMPLE.replacen(from, to, 1);

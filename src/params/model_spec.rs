@@ -31,13 +31,9 @@ pub enum ModelSpec {
 }
 
 impl Default for ModelSpec {
+    /// The default model ([`super::defaults::MODEL`]).
     fn default() -> Self {
-        ModelSpec::Gaussian {
-            sigma: 0.05,
-            p_occ: 0.8,
-            p_free: 0.35,
-            cutoff: 3.0,
-        }
+        super::defaults::MODEL
     }
 }
 

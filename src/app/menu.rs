@@ -28,16 +28,16 @@ impl Purpose {
         match self {
             Purpose::Open => "Open a session, plan or parameter file",
             Purpose::SaveParams => "Save parameters",
-            Purpose::ExportBundle => "Export map bundle (prefix: writes .npy .png .pgm .map.ron)",
+            Purpose::ExportBundle => "Export map bundle (prefix: writes .npy .png .map.ron)",
             Purpose::ExportView => "Save the view as PNG",
         }
     }
 
-    fn action(self, path: PathBuf) -> Action {
+    fn action(self, path: PathBuf, pgm: bool) -> Action {
         match self {
             Purpose::Open => Action::OpenAny(path),
             Purpose::SaveParams => Action::SaveParams(path),
-            Purpose::ExportBundle => Action::ExportBundle(path),
+            Purpose::ExportBundle => Action::ExportBundle { prefix: path, pgm },
             Purpose::ExportView => Action::ExportView(path),
         }
     }
@@ -50,6 +50,8 @@ pub struct Prompt {
     pub purpose: Purpose,
     /// The path typed so far.
     pub text: String,
+    /// Export only: also write a Netpbm `.pgm`.
+    pub pgm: bool,
 }
 
 /// Menu state.
@@ -83,7 +85,11 @@ impl FileMenu {
             Purpose::ExportBundle => format!("{stem}.map"),
             Purpose::ExportView => format!("{stem}.view.png"),
         };
-        self.prompt = Some(Prompt { purpose, text });
+        self.prompt = Some(Prompt {
+            purpose,
+            text,
+            pgm: false,
+        });
     }
 
     /// Draws the menu bar (and the prompt window); returns what the user chose.
@@ -174,7 +180,9 @@ impl FileMenu {
                         && !prompt.text.trim().is_empty()
                     {
                         done = Some(Some(
-                            prompt.purpose.action(PathBuf::from(prompt.text.trim())),
+                            prompt
+                                .purpose
+                                .action(PathBuf::from(prompt.text.trim()), prompt.pgm),
                         ));
                     }
                     if ui
@@ -194,11 +202,19 @@ impl FileMenu {
                         }
                     }
                 });
+                if prompt.purpose == Purpose::ExportBundle {
+                    ui.checkbox(
+                        &mut prompt.pgm,
+                        "also write a Netpbm .pgm of the grey levels",
+                    );
+                }
                 ui.horizontal(|ui| {
                     let ok = !prompt.text.trim().is_empty();
                     if ui.add_enabled(ok, egui::Button::new("OK")).clicked() {
                         done = Some(Some(
-                            prompt.purpose.action(PathBuf::from(prompt.text.trim())),
+                            prompt
+                                .purpose
+                                .action(PathBuf::from(prompt.text.trim()), prompt.pgm),
                         ));
                     }
                     if ui.button("Cancel").clicked() {

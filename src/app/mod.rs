@@ -71,7 +71,12 @@ pub enum Action {
     /// Save the current parameters.
     SaveParams(PathBuf),
     /// Export the current grid as a map bundle.
-    ExportBundle(PathBuf),
+    ExportBundle {
+        /// The bundle's prefix.
+        prefix: PathBuf,
+        /// Also write a Netpbm `.pgm`.
+        pgm: bool,
+    },
     /// Save the grid view as it appears on screen, as PNG.
     ExportView(PathBuf),
     /// Open whatever this file is, judged by its name.
@@ -648,7 +653,7 @@ impl GridscopeApp {
             Action::OpenDemo(n) => self.open_demo(n),
             Action::OpenParams(p) => self.open_params(&p),
             Action::SaveParams(p) => self.save_params(&p),
-            Action::ExportBundle(p) => self.export_bundle(&p),
+            Action::ExportBundle { prefix, pgm } => self.export_bundle(&prefix, pgm),
             Action::ExportView(p) => self.grid_view.request_export(p),
             Action::OpenAny(p) => self.open_any(&p),
             Action::JumpTo {
@@ -724,7 +729,7 @@ impl GridscopeApp {
     }
 
     /// Writes the grid shown (after the current frame) as a map bundle with its provenance.
-    pub fn export_bundle(&mut self, prefix: &Path) {
+    pub fn export_bundle(&mut self, prefix: &Path, pgm: bool) {
         let (Some(doc), Some(shown)) = (&self.doc, &self.shown) else {
             self.problem("nothing to export yet: the map is still being built".into());
             return;
@@ -739,7 +744,7 @@ impl GridscopeApp {
             &prefix,
             &shown.after,
             Some(&provenance),
-            ExportOptions { pgm: true },
+            ExportOptions { pgm },
         ) {
             Ok(files) => {
                 self.notice = Some(Notice::Info(format!(

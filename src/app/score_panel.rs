@@ -4,9 +4,11 @@
 //!
 //! The metrics and their sources are documented in [`crate::score`].
 
+use super::jobs::Job;
 use super::{Action, Document};
-use crate::export::ImageReference;
+use crate::export::{DEFAULT_MARGIN, ImageClasses, ImageReference, classify_image};
 use crate::geometry::Point2;
+use crate::grid::DEFAULT_CELL_BUDGET;
 use crate::grid::Grid;
 use crate::score::{CompareError, Score, score};
 use egui::{Color32, RichText};
@@ -41,8 +43,25 @@ struct ImageForm {
     resolution: f64,
     origin_x: f64,
     origin_y: f64,
-    occupied_at_most: u8,
-    free_at_least: u8,
+    /// Pick the cut from the image's histogram.
+    auto_cut: bool,
+    cut: u8,
+    margin: u8,
+    /// What the current setting makes of the image, once previewed (setting, classes).
+    preview: Option<(ImageReference, Result<ImageClasses, String>)>,
+    preview_job: Option<(ImageReference, Job<Result<ImageClasses, String>>)>,
+}
+
+impl ImageForm {
+    fn setting(&self) -> ImageReference {
+        ImageReference {
+            path: PathBuf::from(self.path.trim()),
+            resolution: self.resolution,
+            origin: Point2::new(self.origin_x, self.origin_y),
+            cut: (!self.auto_cut).then_some(self.cut),
+            margin: self.margin,
+        }
+    }
 }
 
 impl Default for ScorePanel {
@@ -54,8 +73,11 @@ impl Default for ScorePanel {
                 resolution: 0.05,
                 origin_x: 0.0,
                 origin_y: 0.0,
-                occupied_at_most: 100,
-                free_at_least: 155,
+                auto_cut: true,
+                cut: 128,
+                margin: DEFAULT_MARGIN,
+                preview: None,
+                preview_job: None,
             },
             cached: Vec::new(),
         }
@@ -172,19 +194,55 @@ impl ScorePanel {
                     .suffix(" m"),
             )
             .on_hover_text("World y of the image's south-west (bottom-left) corner");
-            ui.add(egui::Slider::new(&mut f.occupied_at_most, 0..=254).text("occupied if grey <="));
-            ui.add(egui::Slider::new(&mut f.free_at_least, 1..=255).text("free if grey >="));
-            if ui
-                .add_enabled(!f.path.trim().is_empty(), egui::Button::new("Load image"))
-                .clicked()
+            ui.checkbox(&mut f.auto_cut, "cut from the image's histogram")
+                .on_hover_text("The grey level that best splits the image into a dark and a light class (Otsu 1979)");
+            ui.add_enabled(
+                !f.auto_cut,
+                egui::Slider::new(&mut f.cut, 0..=254).text("cut (grey)"),
+            )
+            .on_hover_text("Grey levels at or below the cut are occupied (dark), above it free (light)");
+            ui.add(egui::Slider::new(&mut f.margin, 0..=127).text("undecided margin (grey)"))
+                .on_hover_text("Grey levels within this many of the cut are left undecided");
+            let setting = f.setting();
+            if let Some((s, job)) = &f.preview_job
+                && let Some(result) = job.poll()
             {
-                actions.push(Action::LoadReferenceImage(ImageReference {
-                    path: PathBuf::from(f.path.trim()),
-                    resolution: f.resolution,
-                    origin: Point2::new(f.origin_x, f.origin_y),
-                    occupied_at_most: f.occupied_at_most,
-                    free_at_least: f.free_at_least,
-                }));
+                f.preview = Some((s.clone(), result));
+                f.preview_job = None;
+            }
+            let ready = !f.path.trim().is_empty();
+            ui.horizontal(|ui| {
+                if ui
+                    .add_enabled(ready && f.preview_job.is_none(), egui::Button::new("Preview"))
+                    .on_hover_text("Read the image and count what this setting makes of it")
+                    .clicked()
+                {
+                    let r = setting.clone();
+                    let job = Job::spawn(Some(ui.ctx().clone()), 1, move |_, _| {
+                        classify_image(&r, DEFAULT_CELL_BUDGET).map_err(|e| e.to_string())
+                    });
+                    f.preview_job = Some((setting.clone(), job));
+                }
+                if f.preview_job.is_some() {
+                    ui.spinner();
+                }
+            });
+            match &f.preview {
+                Some((s, Ok(c))) if *s == setting => {
+                    ui.label(format!(
+                        "{} x {} pixels, cut {}: {} occupied, {} free, {} undecided",
+                        c.width, c.height, c.cut, c.occupied, c.free, c.undecided
+                    ));
+                    if ui.button("Use as reference").clicked() {
+                        actions.push(Action::LoadReferenceImage(setting));
+                    }
+                }
+                Some((s, Err(e))) if *s == setting => {
+                    ui.colored_label(Color32::from_rgb(255, 110, 90), e);
+                }
+                _ => {
+                    ui.label("Preview the image to see its classes before using it.");
+                }
             }
         });
         let Some(reference) = reference else {

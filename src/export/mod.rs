@@ -9,7 +9,9 @@
 mod image_ref;
 mod load;
 
-pub use image_ref::{ImageReference, load_image_reference};
+pub use image_ref::{
+    DEFAULT_MARGIN, ImageClasses, ImageReference, classify_image, load_image_reference, otsu_cut,
+};
 pub use load::{LoadedBundle, bundle_from_parts, bundle_prefix, load_bundle, parse_meta};
 
 use crate::error::Error;
@@ -121,8 +123,8 @@ pub fn npy_bytes(grid: &Grid) -> Vec<u8> {
 pub fn pgm_bytes(grid: &Grid) -> Vec<u8> {
     let s = grid.spec();
     let mut out = format!(
-        "P5\n# gridscope map: resolution {} m, origin ({}, {}) m, north up\n{} {}\n255\n",
-        s.resolution, s.origin.x, s.origin.y, s.width, s.height
+        "P5\n# gridscope map bundle: geometry and provenance in the .map.ron beside it\n{} {}\n255\n",
+        s.width, s.height
     )
     .into_bytes();
     out.extend(grey_image(grid));

@@ -22,6 +22,7 @@
 //! ```
 #![warn(missing_docs)]
 
+pub mod align;
 pub mod app;
 pub(crate) mod bench;
 pub mod commands;

@@ -56,7 +56,7 @@ pub enum Command {
     Info(InfoArgs),
     /// Print every update a cell received, as CSV: frame,t,sensor,beam,increment,value.
     History(HistoryArgs),
-    /// Score a map bundle against a reference bundle (compared on the overlap).
+    /// Score a map bundle against a reference bundle (any resolution; --align for another frame).
     Score(ScoreArgs),
     /// Rebuild a session for each setting of one or two parameters and score each map.
     Sweep(SweepArgs),

@@ -1,7 +1,10 @@
-//! `gridscope score`: a map bundle against a reference bundle.
+//! `gridscope score`: a map bundle against a reference bundle, of any resolution, and on
+//! request in another frame (see [`crate::score`] for the rule).
 
 use super::{load_map, show};
+use crate::align::fit_rigid;
 use crate::error::{Error, InputError, Problem};
+use crate::geometry::Pose2;
 use crate::grid::DEFAULT_CELL_BUDGET;
 use std::io::Write;
 use std::path::PathBuf;
@@ -20,6 +23,10 @@ pub struct ScoreArgs {
     /// Also print the confusion counts.
     #[arg(long)]
     pub confusion: bool,
+    /// The map was drawn in another frame: fit the rigid transform that best lays its
+    /// occupied cells onto the reference's, print it, and score on the aligned overlap.
+    #[arg(long)]
+    pub align: bool,
     /// Refuse grids larger than this many cells.
     #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
     pub cell_budget: u64,
@@ -29,24 +36,38 @@ pub struct ScoreArgs {
 pub fn score(args: &ScoreArgs, out: &mut dyn Write) -> Result<(), Error> {
     let map = load_map(&args.map, args.cell_budget)?;
     let reference = load_map(&args.reference, args.cell_budget)?;
-    let s = crate::score::score(&map, &reference).map_err(|e| {
-        InputError::new(
-            format!(
-                "{} against {}",
-                args.map.display(),
-                args.reference.display()
-            ),
-            Problem::Malformed(e.to_string()),
-        )
-    })?;
-    let mut pairs: Vec<(&str, String)> = vec![
+    let label = format!(
+        "{} against {}",
+        args.map.display(),
+        args.reference.display()
+    );
+    let mut pairs: Vec<(&str, String)> = Vec::new();
+    let mut pose = Pose2::default();
+    if args.align {
+        let fit = fit_rigid(&map, &reference).ok_or_else(|| {
+            InputError::new(
+                label.clone(),
+                Problem::Malformed("one of the maps has no occupied cell to align by".into()),
+            )
+        })?;
+        pose = fit.pose;
+        pairs.extend([
+            ("align_x", show(pose.x)),
+            ("align_y", show(pose.y)),
+            ("align_theta", show(pose.theta)),
+            ("align_fit", show(fit.score)),
+        ]);
+    }
+    let s = crate::score::score_moved(&map, &reference, &pose)
+        .map_err(|e| InputError::new(label, Problem::Malformed(e.to_string())))?;
+    pairs.extend([
         ("cells_compared", s.cells_compared.to_string()),
         ("cross_entropy_bits", show(s.cross_entropy_bits)),
         ("brier", show(s.brier)),
         ("auc", show(s.auc)),
         ("precision", show(s.precision)),
         ("recall", show(s.recall)),
-    ];
+    ]);
     if args.confusion {
         let c = s.confusion;
         pairs.extend([

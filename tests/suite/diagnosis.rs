@@ -151,7 +151,10 @@ fn score_command_prints_hand_computed_values() {
     assert!(
         json.trim().starts_with("{\"cells_compared\": 5,") && json.contains("\"recall\": 0.333")
     );
-    // A reference of another resolution is refused with exit status 2.
+    // A reference of another resolution is resampled: each map cell meets the reference cell
+    // holding its centre. One 2 m cell from (0, 0), occupied, holds the centres of map cells
+    // (0, 0), (1, 0), (0, 1), (1, 1) with p 0.7, 0.2, 0.4, 0.99: two occupied calls, both
+    // right; two free calls, both wrong (worked by hand).
     let coarse_dir = scratch("score-cli-coarse");
     let coarse = coarse_dir.join("coarse");
     let spec = GridSpec {
@@ -172,9 +175,65 @@ fn score_command_prints_hand_computed_values() {
         map.to_str().unwrap(),
         "--reference",
         coarse.to_str().unwrap(),
+        "--confusion",
     ]);
-    assert_eq!(o.status.code(), Some(2));
-    assert!(String::from_utf8_lossy(&o.stderr).contains("resolutions"));
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = String::from_utf8(o.stdout).unwrap();
+    for line in [
+        "cells_compared=4",
+        "precision=1",
+        "recall=0.5",
+        "true_occupied=2",
+        "false_free=2",
+    ] {
+        assert!(text.lines().any(|l| l == line), "{line} in {text}");
+    }
+}
+
+#[test]
+fn score_aligns_a_map_drawn_in_another_frame() {
+    // The glass-pass map against its plan, both in one frame: the fitted transform is the
+    // identity to within a cell and a degree (geometry of a simple case), and the scores on the
+    // aligned overlap equal the plain ones.
+    let dir = scratch("score-align");
+    let map = dir.join("glass");
+    let o = gridscope(&[
+        "build",
+        "demo:glass-pass",
+        "--params",
+        "demo:glass-pass",
+        "--out",
+        map.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let run = |extra: &[&str]| {
+        let mut args = vec![
+            "score",
+            map.to_str().unwrap(),
+            "--reference",
+            "demo:glass-pass",
+        ];
+        args.extend_from_slice(extra);
+        let o = gridscope(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        String::from_utf8(o.stdout).unwrap()
+    };
+    let aligned = run(&["--align"]);
+    let get = |k: &str| -> f64 {
+        aligned
+            .lines()
+            .find_map(|l| l.strip_prefix(&format!("{k}=")))
+            .unwrap_or_else(|| panic!("{k} in {aligned}"))
+            .parse()
+            .unwrap()
+    };
+    assert!(
+        get("align_x").abs() <= 0.05 && get("align_y").abs() <= 0.05,
+        "{aligned}"
+    );
+    assert!(get("align_theta").abs() < 1f64.to_radians(), "{aligned}");
+    assert!(get("align_fit") > 0.5, "{aligned}");
+    assert!(get("cells_compared") > 10_000.0);
 }
 
 fn ref_str(p: &std::path::Path) -> &str {

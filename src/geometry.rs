@@ -9,6 +9,7 @@ use std::f64::consts::PI;
 
 /// A point in the world frame, metres.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Point2 {
     /// East, metres.
     pub x: f64,
@@ -35,6 +36,7 @@ impl Point2 {
 
 /// A planar pose: position in metres and heading in radians (counter-clockwise from +x).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Pose2 {
     /// Position east, metres.
     pub x: f64,

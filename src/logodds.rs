@@ -19,6 +19,7 @@ pub fn probability(l: f64) -> f64 {
 
 /// Bounds on a cell's value, in log-odds, with `min < 0 < max`.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Clamp {
     /// Lower bound, log-odds (negative: the most "free" a cell may become).
     pub min: f64,

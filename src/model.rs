@@ -15,10 +15,16 @@ use crate::params::ModelSpec;
 /// points where the table is checked while it is built.
 pub const TABLE_TOLERANCE: f64 = 2e-5;
 
-/// Gaussian shape g(x) = exp(-x^2 / (2 sigma^2)).
+/// Gaussian shape g(x) = exp(-x^2 / (2 sigma^2)), computed as exp(-(x / sigma)^2 / 2) so that a
+/// tiny sigma (whose square underflows to 0) still gives g(0) = 1 and g(x != 0) = 0.
 #[inline]
 fn gauss(x: f64, sigma: f64) -> f64 {
-    (-(x * x) / (2.0 * sigma * sigma)).exp()
+    let u = x / sigma;
+    if u.is_nan() {
+        // 0 / 0 cannot happen for sigma > 0; keep the formula's value at the peak anyway.
+        return 1.0;
+    }
+    (-0.5 * u * u).exp()
 }
 
 /// The radial profile p(d | z) for a hit at range `z` (metres) and a cell centre at distance
@@ -201,8 +207,11 @@ impl PreparedModel {
             m.back = (cutoff.max(1.0) + 3.0) * sigma;
             let before = |x: f64| logit(p_free.max(p_occ * gauss(x, sigma)));
             let after = |x: f64| logit(0.5 + (p_occ - 0.5) * gauss(x, sigma));
-            m.before = Some(Table::build(m.front, 0.0, TABLE_TOLERANCE, before));
-            m.after = Some(Table::build(0.0, m.back, TABLE_TOLERANCE, after));
+            // Below a nanometre a table's steps would underflow; such a model takes the formula.
+            if sigma >= 1e-9 {
+                m.before = Some(Table::build(m.front, 0.0, TABLE_TOLERANCE, before));
+                m.after = Some(Table::build(0.0, m.back, TABLE_TOLERANCE, after));
+            }
         }
         m
     }
@@ -436,6 +445,30 @@ mod tests {
                 assert!(worst < 1e-4, "p_free {p_free} width {width}: {worst}");
             }
             assert!(ConeFreeTable::new(&m, ConeFreeTable::MAX_WIDTH + 0.1).is_none());
+        }
+    }
+
+    #[test]
+    fn a_vanishing_sigma_keeps_the_peak_at_the_reading() {
+        // The contract's formula at d = z: g(0) = 1, so p = max(p_free, p_occ) = p_occ, however
+        // small sigma is (its square underflows to 0 below about 1e-154).
+        for sigma in [1e-200, 1e-310, 1e-12, 0.05] {
+            let spec = ModelSpec::Gaussian {
+                sigma,
+                p_occ: 0.8,
+                p_free: 0.35,
+                cutoff: 3.0,
+            };
+            assert_eq!(hit_probability(&spec, 2.0, 2.0), 0.8, "{sigma}");
+            let m = PreparedModel::new(spec);
+            assert!(
+                (m.hit_increment(2.0, 2.0) - logit(0.8)).abs() < 1e-4,
+                "{sigma}"
+            );
+            assert!(
+                (m.hit_increment(1.0, 2.0) - logit(0.35)).abs() < 1e-12,
+                "{sigma}"
+            );
         }
     }
 }

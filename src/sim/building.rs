@@ -201,6 +201,7 @@ pub fn building_plan(spec: &BuildingSpec) -> FloorPlan {
                 miss: 0.0,
             },
             cone_rays: 1,
+            no_return: super::plan::NoReturnReport::RangeMax,
         }],
         seed: spec.seed,
         reference_resolution: 0.05,

@@ -12,7 +12,7 @@ mod plan;
 mod rng;
 
 pub use building::{BuildingSpec, building_plan};
-pub use plan::{FloorPlan, Material, Noise, Route, SimSensor, Wall, Window};
+pub use plan::{FloorPlan, Material, NoReturnReport, Noise, Route, SimSensor, Wall, Window};
 pub use rng::Rng;
 
 use crate::error::{Error, InputError};
@@ -309,21 +309,25 @@ pub fn simulate(plan: &FloorPlan) -> Result<Session, InputError> {
                     }
                 };
                 let noise = sim.noise;
+                let nothing = match sim.no_return {
+                    NoReturnReport::RangeMax => s.range_max as f32,
+                    NoReturnReport::Infinity => f32::INFINITY,
+                };
                 let r = if rng.uniform() < noise.dropout {
                     0.0
                 } else if rng.uniform() < noise.miss {
-                    s.range_max as f32
+                    nothing
                 } else {
                     match truth {
                         Some(d) => {
                             let noisy = d + noise.sigma * rng.normal();
                             if noisy >= s.range_max {
-                                s.range_max as f32
+                                nothing
                             } else {
                                 to_mm(noisy.max(s.range_min))
                             }
                         }
-                        None => s.range_max as f32,
+                        None => nothing,
                     }
                 };
                 buf.push(r);
@@ -455,6 +459,7 @@ mod tests {
                 },
                 noise: Noise::default(),
                 cone_rays: 9,
+                no_return: NoReturnReport::RangeMax,
             }],
             seed: 1,
             reference_resolution: 0.1,
@@ -562,5 +567,40 @@ mod tests {
         assert_eq!(at(6.05, 2.0), REFERENCE_OCCUPIED);
         assert_eq!(at(5.85, 2.0), REFERENCE_FREE);
         assert_eq!(at(3.05, 1.0), REFERENCE_FREE);
+    }
+
+    #[test]
+    fn missed_returns_written_as_infinity_clear_like_range_max() {
+        // The file contract (section 2): a reading of +inf is a no-return. A run whose sensor
+        // writes its misses as +inf maps exactly like the same run writing range_max.
+        let mut plan = room_plan();
+        plan.sensors[0].noise.miss = 0.2;
+        plan.sensors[0].sensor.range_max = 3.0;
+        let as_max = simulate(&plan).unwrap();
+        plan.sensors[0].no_return = NoReturnReport::Infinity;
+        let as_inf = simulate(&plan).unwrap();
+        let infinite = as_inf
+            .frames
+            .iter()
+            .flat_map(|f| as_inf.ranges(f.scans[0]).to_vec())
+            .filter(|r| r.is_infinite())
+            .count();
+        assert!(infinite > 100, "{infinite}");
+        assert_eq!(as_max.stats().no_returns, as_inf.stats().no_returns);
+        let params = crate::params::Params::default();
+        let build = |s: Session| {
+            let n = s.frames.len();
+            crate::fusion::MapBuilder::new(std::sync::Arc::new(s), params.clone())
+                .unwrap()
+                .build(n)
+        };
+        assert_eq!(build(as_max), build(as_inf));
+        // And the text writer keeps them: inf reads back as inf.
+        let text = as_inf_text(&plan);
+        assert!(text.contains("inf"));
+    }
+
+    fn as_inf_text(plan: &FloorPlan) -> String {
+        simulate(plan).unwrap().to_ron_string()
     }
 }

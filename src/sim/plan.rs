@@ -15,6 +15,7 @@ use std::path::Path;
 
 /// What a wall is made of.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub enum Material {
     /// Reflects every beam.
     #[default]
@@ -28,6 +29,7 @@ pub enum Material {
 
 /// A time window in seconds, `from <= t < until`.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct Window {
     /// Start, seconds.
     pub from: f64,
@@ -87,6 +89,16 @@ pub struct Noise {
     pub miss: f64,
 }
 
+/// How a simulated sensor writes a beam that returned nothing.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+pub enum NoReturnReport {
+    /// As the sensor's maximum range.
+    #[default]
+    RangeMax,
+    /// As positive infinity, as many drivers do.
+    Infinity,
+}
+
 /// A sensor of the simulated robot and its noise.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -99,6 +111,9 @@ pub struct SimSensor {
     /// `Cone` sensors: sub-rays cast across the opening to find the nearest echo.
     #[serde(default = "default_cone_rays")]
     pub cone_rays: u32,
+    /// How a beam that returned nothing is written.
+    #[serde(default)]
+    pub no_return: NoReturnReport,
 }
 
 fn default_cone_rays() -> u32 {
@@ -163,6 +178,28 @@ impl FloorPlan {
 
     /// Checks every field, naming the first that is wrong.
     pub fn validate(&self) -> Result<(), Problem> {
+        // Coordinates within 1000 km of the origin: far beyond any building, and far inside
+        // what the geometry below computes without overflow.
+        let near = |p: &Point2| p.is_finite() && p.x.abs() <= 1e6 && p.y.abs() <= 1e6;
+        let far = |what: String| {
+            bad(
+                what,
+                "coordinates must be finite and within 1e6 m of the origin",
+            )
+        };
+        for (i, w) in self.walls.iter().enumerate() {
+            if !near(&w.a) || !near(&w.b) {
+                return Err(far(format!("walls[{i}]")));
+            }
+        }
+        for (i, poly) in self.free_space.iter().enumerate() {
+            if !poly.iter().all(near) {
+                return Err(far(format!("free_space[{i}]")));
+            }
+        }
+        if !self.route.waypoints.iter().all(near) {
+            return Err(far("route.waypoints".into()));
+        }
         for (i, w) in self.walls.iter().enumerate() {
             if !w.a.is_finite() || !w.b.is_finite() {
                 return Err(bad(format!("walls[{i}]"), "end points must be finite"));

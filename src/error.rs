@@ -181,14 +181,14 @@ pub enum Error {
         "{}the map would need {:.1} GB for its cells, more than this machine's {:.1} GB; \
          coarsen the resolution or fix a smaller extent in the parameters",
         source_label(input),
-        *bytes as f64 / 1e9,
+        *bytes / 1e9,
         *memory as f64 / 1e9
     )]
     OverMemory {
         /// The input whose beams or metadata ask for the grid, when known.
         input: Option<String>,
-        /// Bytes the grid's cells need.
-        bytes: u64,
+        /// Bytes the grid's cells need (a float, so absurd sizes cannot overflow).
+        bytes: f64,
         /// Physical memory of this machine, bytes.
         memory: u64,
     },

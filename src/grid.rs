@@ -195,7 +195,7 @@ impl GridSpec {
         if bytes > memory as f64 || bytes > isize::MAX as f64 {
             return Err(Error::OverMemory {
                 input: None,
-                bytes: bytes as u64,
+                bytes,
                 memory,
             });
         }

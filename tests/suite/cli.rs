@@ -1,30 +1,8 @@
 //! The command line: exit statuses, messages that name the place, nothing written on refusal.
 
-use super::{samples_dir, scratch};
-use std::path::Path;
-use std::process::{Command, Output};
+use super::{files_in, gridscope, samples_dir, scratch, stderr};
 
-fn gridscope(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_gridscope"))
-        .args(args)
-        .output()
-        .expect("the binary runs")
-}
-
-fn stderr(o: &Output) -> String {
-    String::from_utf8_lossy(&o.stderr).into_owned()
-}
-
-fn files_in(dir: &Path) -> Vec<String> {
-    let mut v: Vec<String> = std::fs::read_dir(dir)
-        .unwrap()
-        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
-        .collect();
-    v.sort();
-    v
-}
-
-const GOOD: &str = r#"(
+pub const GOOD: &str = r#"(
     format: 1,
     name: "cli test",
     sensors: [(id: "front", kind: Ray, mount: (x: 0.0, y: 0.0, theta: 0.0),

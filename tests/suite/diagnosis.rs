@@ -1,7 +1,7 @@
 //! Diagnosis from the command line: cell histories agree with builds, scores match hand
 //! computations, sweeps find a best setting that is known in advance.
 
-use super::scratch;
+use super::{gridscope, scratch};
 use gridscope::demo::DEMOS;
 use gridscope::export::{ExportOptions, write_bundle};
 use gridscope::session::{BeamAngles, Sensor};
@@ -10,16 +10,8 @@ use gridscope::{
     Clamp, Grid, GridSpec, MapBuilder, ModelSpec, Params, Point2, Pose2, SensorKind, Session,
     load_bundle, logit,
 };
-use std::process::Command;
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicUsize};
-
-fn gridscope(args: &[&str]) -> std::process::Output {
-    Command::new(env!("CARGO_BIN_EXE_gridscope"))
-        .args(args)
-        .output()
-        .expect("the binary runs")
-}
 
 #[test]
 fn history_agrees_exactly_with_build_on_every_sample_session() {

@@ -2,12 +2,37 @@
 
 mod cli;
 mod diagnosis;
+mod hostile;
 mod independent;
 mod parallel;
 mod samples;
 mod window;
 
 use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+/// Runs the `gridscope` binary with `args`.
+pub fn gridscope(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_gridscope"))
+        .args(args)
+        .output()
+        .expect("the binary runs")
+}
+
+/// What a run printed on stderr.
+pub fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+/// The names in a directory, sorted.
+pub fn files_in(dir: &Path) -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    v.sort();
+    v
+}
 
 /// A fresh, empty scratch directory for one test.
 pub fn scratch(name: &str) -> PathBuf {

@@ -4,6 +4,7 @@ mod cli;
 mod diagnosis;
 mod hostile;
 mod independent;
+mod mutation;
 mod parallel;
 mod samples;
 mod window;

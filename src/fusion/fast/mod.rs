@@ -47,7 +47,11 @@ pub(super) struct Tile {
 pub(super) struct Cells(*mut f32);
 
 // SAFETY: `Cells` is only dereferenced at indices of cells inside the tile a task owns, and
-// each tile of a chunk is owned by exactly one task (see `integrate_bands`).
+// each tile of a chunk is owned by exactly one task (see `integrate_fast`). What a hostile file
+// controls (poses, mounts, angles, ranges, the extent within the cell budget) only decides
+// which cells a beam's walk visits; every index written is the walk's cell clipped to the
+// running tile's rows and columns (`RayWalk::enter_box`, the counts taken inside the tile, the
+// cone's rows and columns), and the tile lies inside the grid the values were sized for.
 unsafe impl Send for Cells {}
 unsafe impl Sync for Cells {}
 

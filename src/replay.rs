@@ -25,8 +25,8 @@ pub struct Replay {
     snapshots: BTreeMap<usize, Grid>,
     max_snapshots: usize,
     /// The last state computed (frames integrated, grid): stepping forward from it costs one
-    /// frame, which is what playback does.
-    cursor: Option<(usize, Grid)>,
+    /// frame, which is what playback does. Shared with whoever asked for it (no copy).
+    cursor: Option<(usize, Arc<Grid>)>,
 }
 
 impl Replay {
@@ -69,14 +69,23 @@ impl Replay {
         frames: usize,
         cancel: &AtomicBool,
         on_frame: &mut dyn FnMut(&Grid, usize, usize),
-    ) -> Result<Grid, Error> {
+    ) -> Result<Arc<Grid>, Error> {
         let target = frames.min(self.builder.session().frames.len());
+        if let Some((c, g)) = &self.cursor
+            && *c == target
+        {
+            return Ok(g.clone());
+        }
         let snapshot = self.snapshots.range(..=target).next_back();
         let (start, mut grid) = match (&self.cursor, snapshot) {
-            (Some((c, g)), s) if *c <= target && s.is_none_or(|(&k, _)| *c >= k) => (*c, g.clone()),
+            (Some((c, g)), s) if *c <= target && s.is_none_or(|(&k, _)| *c >= k) => {
+                (*c, (**g).clone())
+            }
             (_, Some((&k, g))) => (k, g.clone()),
             (_, None) => (0, self.builder.blank()),
         };
+        // The cursor's grid is about to be replaced: let it go before integrating.
+        self.cursor = None;
         let total = target - start;
         // Integrate in pieces that end on snapshot marks: few calls, each a large parallel job.
         let mut f = start;
@@ -95,6 +104,7 @@ impl Replay {
             on_frame(&grid, next - start, total);
             f = next;
         }
+        let grid = Arc::new(grid);
         self.cursor = Some((target, grid.clone()));
         Ok(grid)
     }
@@ -105,11 +115,11 @@ impl Replay {
         frame: usize,
         cancel: &AtomicBool,
         on_frame: &mut dyn FnMut(&Grid, usize, usize),
-    ) -> Result<(Grid, Grid), Error> {
+    ) -> Result<(Arc<Grid>, Arc<Grid>), Error> {
         let before = self.state_before(frame, cancel, on_frame)?;
-        let mut after = before.clone();
+        let mut after = (*before).clone();
         self.builder.integrate(&mut after, frame..frame + 1);
-        Ok((before, after))
+        Ok((before, Arc::new(after)))
     }
 }
 
@@ -132,7 +142,7 @@ mod tests {
             let g = r
                 .state_before(target, &never, &mut |_, _, _| calls += 1)
                 .unwrap();
-            assert_eq!(g, b.build(target), "frame {target}");
+            assert_eq!(*g, b.build(target), "frame {target}");
             assert!(calls <= target.min(s.frames.len()));
         }
         assert!(r.snapshot_count() <= 20);
@@ -143,13 +153,13 @@ mod tests {
         assert!(calls < r.interval(), "{calls} frames replayed");
         let mut calls = 0;
         assert_eq!(
-            r.state_before(300, &never, &mut |_, _, _| calls += 1)
+            *r.state_before(300, &never, &mut |_, _, _| calls += 1)
                 .unwrap(),
             b.build(300)
         );
         assert_eq!(calls, 1);
         let (before, after) = r.around(100, &never, &mut |_, _, _| {}).unwrap();
-        assert_eq!((before, after), (b.build(100), b.build(101)));
+        assert_eq!((&*before, &*after), (&b.build(100), &b.build(101)));
     }
 
     #[test]

@@ -7,7 +7,7 @@
 //!
 //! [`MapBuilder::probe`]: crate::MapBuilder::probe
 
-use super::{Action, Document};
+use super::{Action, Document, Shown};
 use crate::fusion::TouchRecord;
 use crate::{BeamRef, FusionRule, Reading};
 use egui::{Color32, RichText};
@@ -85,14 +85,17 @@ pub struct BeamPanel {}
 
 impl BeamPanel {
     /// Draws the inspector for `selected` = (sensor, beam) in frame `frame`.
+    /// `shown` gives the builder of the grids the records came from.
     pub fn ui(
         &mut self,
         ui: &mut egui::Ui,
         doc: &Document,
+        shown: Option<&Shown>,
         frame: usize,
         selected: Option<(usize, usize)>,
         records: &[TouchRecord],
     ) -> Vec<Action> {
+        let builder = shown.map_or(&doc.builder, |s| &s.builder);
         let mut actions = Vec::new();
         ui.heading("Beam");
         let sensors = &doc.session.sensors;
@@ -142,7 +145,7 @@ impl BeamPanel {
             sensor: selected_pair.0,
             beam: selected_pair.1,
         };
-        let Some(ray) = doc.builder.beam_ray(b) else {
+        let Some(ray) = builder.beam_ray(b) else {
             ui.label(format!(
                 "sensor \"{}\" has no scan in frame {frame}",
                 sensors[b.sensor].id
@@ -160,12 +163,33 @@ impl BeamPanel {
             b.beam,
             ray.heading.to_degrees()
         ));
-        if doc.builder.is_excluded(b) {
-            ui.colored_label(
-                Color32::from_rgb(160, 160, 255),
-                "This beam is excluded from the fusion: its cells do not change.",
-            );
-        }
+        let entry = (b.frame, sensors[b.sensor].id.clone(), b.beam);
+        let left_out = doc.params.exclude.beams.contains(&entry);
+        ui.horizontal(|ui| {
+            if builder.is_excluded(b) {
+                ui.colored_label(
+                    Color32::from_rgb(160, 160, 255),
+                    "Left out of the fusion: its cells do not change.",
+                );
+            }
+            if left_out {
+                if ui
+                    .button("Put this beam back")
+                    .on_hover_text("Take the beam into the fusion again")
+                    .clicked()
+                {
+                    let mut p = doc.params.clone();
+                    p.exclude.beams.retain(|e| *e != entry);
+                    actions.push(Action::SetParams(p));
+                }
+            } else if ui
+                .button("Leave this beam out")
+                .on_hover_text("Leave this beam of this frame out of the fusion (saved with the parameters; Ctrl+Z undoes)")
+                .clicked()
+            {
+                actions.push(Action::ExcludeBeam(b));
+            }
+        });
         let touched = records.len();
         let clamped = records.iter().filter(|r| r.clamped).count();
         ui.label(format!(
@@ -175,7 +199,7 @@ impl BeamPanel {
             ui.label("OncePerCell: 'after' is the value at the end of the frame; 'used' says whether this beam's increment was the one applied.");
         }
 
-        self.plot_ui(ui, doc, b, ray.reading, records);
+        self.plot_ui(ui, builder, b, ray.reading, records);
 
         ui.separator();
         footprint_table_ui(ui, records, doc.params.fusion);
@@ -185,14 +209,14 @@ impl BeamPanel {
     fn plot_ui(
         &self,
         ui: &mut egui::Ui,
-        doc: &Document,
+        builder: &crate::MapBuilder,
         b: BeamRef,
         reading: Reading,
         records: &[TouchRecord],
     ) {
-        let model = doc.builder.model(b.sensor);
-        let sensor = &doc.session.sensors[b.sensor];
-        let crate::fusion::CellBounds { lo, hi } = doc.builder.bounds();
+        let model = builder.model(b.sensor);
+        let sensor = &builder.session().sensors[b.sensor];
+        let crate::fusion::CellBounds { lo, hi } = builder.bounds();
         let cells: Vec<[f64; 2]> = records
             .iter()
             .map(|r| [r.touch.distance, r.touch.increment as f64])
@@ -203,24 +227,27 @@ impl BeamPanel {
             Reading::Invalid => None,
         };
         let far = reach.unwrap_or(1.0) * 1.05;
+        let curve: Vec<[f64; 2]> = match (reading, reach) {
+            (Reading::Hit(z), Some(reach)) => (0..=400)
+                .map(|k| {
+                    let d = reach * k as f64 / 400.0;
+                    [d, model.hit_increment_exact(d, z)]
+                })
+                .collect(),
+            _ => Vec::new(),
+        };
+        let values: Vec<f64> = curve.iter().chain(&cells).map(|p| p[1]).collect();
+        let bounds = super::model_plot_bounds(&values, lo as f64, hi as f64);
         Plot::new(("beam plot", b.sensor, b.beam))
             .default_x_bounds(0.0, far)
+            .default_y_bounds(bounds.y_min, bounds.y_max)
             .height(190.0)
             .legend(Legend::default())
             .custom_x_axes(super::plot_x_axis("distance from the sensor (m)"))
             .y_axis_label("increment (log-odds)")
-            .include_y(lo as f64)
-            .include_y(hi as f64)
             .allow_scroll(false)
             .show(ui, |p| {
-                if let (Reading::Hit(z), Some(reach)) = (reading, reach) {
-                    let n = 400;
-                    let curve: Vec<[f64; 2]> = (0..=n)
-                        .map(|k| {
-                            let d = reach * k as f64 / n as f64;
-                            [d, model.hit_increment_exact(d, z)]
-                        })
-                        .collect();
+                if let Reading::Hit(z) = reading {
                     p.line(Line::new("model", PlotPoints::from(curve)));
                     p.vline(VLine::new("reading", z));
                 }
@@ -228,8 +255,19 @@ impl BeamPanel {
                     p.vline(VLine::new("reach", reach).color(Color32::GRAY));
                 }
                 p.points(Points::new("touched cells", PlotPoints::from(cells)).radius(2.5));
-                p.hline(HLine::new("clamp max", hi as f64).color(Color32::from_rgb(120, 140, 255)));
-                p.hline(HLine::new("clamp min", lo as f64).color(Color32::from_rgb(240, 200, 90)));
+                if bounds.show_hi {
+                    p.hline(
+                        HLine::new("clamp max", hi as f64).color(Color32::from_rgb(120, 140, 255)),
+                    );
+                }
+                if bounds.show_lo {
+                    p.hline(
+                        HLine::new("clamp min", lo as f64).color(Color32::from_rgb(240, 200, 90)),
+                    );
+                }
             });
+        if let Some(note) = bounds.note(lo as f64, hi as f64) {
+            ui.label(note);
+        }
     }
 }

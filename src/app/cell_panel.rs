@@ -22,6 +22,34 @@ pub struct CellPanel {
     /// The finished history and what it is for.
     pub history: Option<(Key, Vec<CellUpdate>)>,
     job: Option<(Key, Job<Vec<CellUpdate>>)>,
+    /// Where "Save as CSV" writes.
+    pub csv_path: String,
+    problem: Option<String>,
+}
+
+/// The points of a cell's value plotted against the frame: the value before the run, then for
+/// each frame that changed it a step up or down at that frame (its last value), and the value
+/// held to the end of the run. Updates that leave the value as it was add no point, so a long
+/// flat stretch is one line however many updates it had.
+pub fn history_points(prior: f32, updates: &[CellUpdate], frames: usize) -> Vec<[f64; 2]> {
+    let mut pts = vec![[0.0, prior as f64]];
+    let mut value = prior;
+    let mut k = 0;
+    while k < updates.len() {
+        let frame = updates[k].frame;
+        // The frame's last update is the value after the frame.
+        while k < updates.len() && updates[k].frame == frame {
+            k += 1;
+        }
+        let after = updates[k - 1].value;
+        if after != value {
+            pts.push([frame as f64, value as f64]);
+            pts.push([frame as f64, after as f64]);
+            value = after;
+        }
+    }
+    pts.push([frames.max(1) as f64, value as f64]);
+    pts
 }
 
 impl CellPanel {
@@ -32,13 +60,21 @@ impl CellPanel {
             self.job = None;
             return;
         };
-        let key = (doc.generation, cell);
+        let key = (doc.built, cell);
         if let Some((k, job)) = &self.job
             && *k == key
         {
-            if let Some(updates) = job.poll() {
-                self.history = Some((key, updates));
-                self.job = None;
+            match job.poll() {
+                Some(Ok(updates)) => {
+                    self.history = Some((key, updates));
+                    self.job = None;
+                }
+                Some(Err(failure)) => {
+                    self.problem = Some(format!("the history {failure}"));
+                    self.history = Some((key, Vec::new()));
+                    self.job = None;
+                }
+                None => {}
             }
             return;
         }
@@ -47,14 +83,18 @@ impl CellPanel {
         }
         let builder = doc.builder.clone();
         let frames = doc.session.frames.len();
+        if self.csv_path.is_empty() {
+            self.csv_path = format!("cell-{}-{}.csv", cell.col, cell.row);
+        }
         let job = Job::spawn(ctx, frames, move |_, _| builder.cell_history(cell, frames));
         self.job = Some((key, job));
+        self.problem = None;
     }
 
     /// Waits for a running history (tests only).
     pub fn wait(&mut self) {
         if let Some((key, job)) = self.job.take()
-            && let Some(updates) = job.wait()
+            && let Ok(updates) = job.wait()
         {
             self.history = Some((key, updates));
         }
@@ -80,11 +120,10 @@ impl CellPanel {
             "cell ({}, {}), centre x {:.3} m, y {:.3} m",
             cell.col, cell.row, centre.x, centre.y
         ));
-        let Some((_, updates)) = self
-            .history
-            .as_ref()
-            .filter(|h| h.0 == (doc.generation, cell))
-        else {
+        if let Some(p) = &self.problem {
+            ui.colored_label(Color32::from_rgb(255, 110, 90), p);
+        }
+        let Some((_, updates)) = self.history.as_ref().filter(|h| h.0 == (doc.built, cell)) else {
             ui.horizontal(|ui| {
                 ui.spinner();
                 ui.label("tracing the cell through the run...");
@@ -110,16 +149,8 @@ impl CellPanel {
             probability(now as f64)
         ));
 
-        // Value after each frame, as a step line from the prior.
         let n = doc.session.frames.len();
-        let mut pts: Vec<[f64; 2]> = vec![[0.0, prior as f64]];
-        for u in updates {
-            let x = u.frame as f64;
-            let last = pts.last().expect("starts with the prior")[1];
-            pts.push([x, last]);
-            pts.push([x, u.value as f64]);
-        }
-        pts.push([n as f64, pts.last().expect("non-empty")[1]]);
+        let pts = history_points(prior, updates, n);
         Plot::new(("cell plot", cell.col, cell.row))
             .height(200.0)
             .legend(Legend::default())
@@ -137,6 +168,18 @@ impl CellPanel {
                 p.hline(HLine::new("p = 0.5", 0.0).color(Color32::GRAY));
             });
 
+        ui.horizontal(|ui| {
+            let l = ui.label("CSV file");
+            ui.add(egui::TextEdit::singleline(&mut self.csv_path).desired_width(200.0))
+                .labelled_by(l.id);
+            if ui
+                .add_enabled(!self.csv_path.trim().is_empty(), egui::Button::new("Save as CSV"))
+                .on_hover_text("Every update of this cell: frame,t,sensor,beam,increment,value (as `gridscope history` writes)")
+                .clicked()
+            {
+                actions.push(Action::SaveCellHistory(self.csv_path.trim().into()));
+            }
+        });
         ui.label(RichText::new("Updates (click one to go to its frame and beam)").strong());
         use egui_extras::{Column, TableBuilder};
         let row_height = ui.text_style_height(&egui::TextStyle::Monospace) + 2.0;
@@ -205,5 +248,50 @@ impl CellPanel {
                 });
             });
         actions
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn update(frame: usize, value: f32) -> CellUpdate {
+        CellUpdate {
+            frame,
+            t: frame as f64 * 0.1,
+            sensor: 0,
+            beam: 0,
+            increment: 0.0,
+            value,
+            clamped: false,
+        }
+    }
+
+    #[test]
+    fn a_flat_jump_flat_history_plots_as_steps() {
+        // Unknown until frame 1381, 0.376 from 1397 to 3797 (many updates that change nothing),
+        // the clamp 3.5 from 3814 to the end of a 3873-frame run. The line must be flat, jump,
+        // and be flat again: never a ramp between distant frames.
+        let mut updates = vec![update(1381, 0.2), update(1381, 0.376)];
+        updates.extend((1397..=3797).step_by(4).map(|f| update(f, 0.376)));
+        updates.extend([update(3814, 1.9), update(3814, 3.5), update(3830, 3.5)]);
+        let pts = history_points(0.0, &updates, 3873);
+        assert_eq!(
+            pts,
+            vec![
+                [0.0, 0.0],
+                [1381.0, 0.0],
+                [1381.0, 0.376f32 as f64],
+                [3814.0, 0.376f32 as f64],
+                [3814.0, 3.5],
+                [3873.0, 3.5],
+            ]
+        );
+        // Every pair of neighbours shares its x or its y: only steps.
+        assert!(
+            pts.windows(2)
+                .all(|w| w[0][0] == w[1][0] || w[0][1] == w[1][1])
+        );
+        assert_eq!(history_points(0.5, &[], 10), vec![[0.0, 0.5], [10.0, 0.5]]);
     }
 }

@@ -49,7 +49,7 @@ impl ChangesPanel {
             let after = builder.build(to + 1);
             class_changes(&before, &after).map_err(|e| e.to_string())
         });
-        self.job = Some((doc.generation, job));
+        self.job = Some((doc.built, job));
     }
 
     fn collect(&mut self, generation: u64, result: Result<Vec<ChangeCluster>, String>) {
@@ -64,9 +64,10 @@ impl ChangesPanel {
 
     /// Waits for a running search (tests only).
     pub fn wait(&mut self) {
-        if let Some((g, job)) = self.job.take()
-            && let Some(r) = job.wait()
-        {
+        if let Some((g, job)) = self.job.take() {
+            let r = job
+                .wait()
+                .unwrap_or_else(|f| Err(format!("the search {f}")));
             self.collect(g, r);
         }
     }
@@ -79,7 +80,7 @@ impl ChangesPanel {
         {
             let g = *g;
             self.job = None;
-            self.collect(g, r);
+            self.collect(g, r.unwrap_or_else(|f| Err(format!("the search {f}"))));
         }
         let last = doc.session.frames.len().saturating_sub(1);
         if !self.initialised {
@@ -133,7 +134,7 @@ impl ChangesPanel {
             })
             .collect();
         self.current = self.current.min(clusters.len().saturating_sub(1));
-        if *g != doc.generation {
+        if *g != doc.built {
             ui.label("The parameters changed since this search; search again to update it.");
         }
         let cells: usize = clusters.iter().map(|c| c.cells.len()).sum();

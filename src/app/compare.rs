@@ -3,18 +3,21 @@
 //!
 //! A has a rebuild worker of its own, so both maps follow the timeline in the background.
 
-use super::worker::{Reply, Worker};
-use super::{Action, Document};
+use super::jobs::Job;
+use super::render::difference_colour;
+use super::worker::{Reply, Setup, Worker};
+use super::{Action, Document, PINNED_SNAPSHOT_BUDGET};
 use crate::fusion::MapBuilder;
+use crate::geometry::Pose2;
 use crate::grid::Grid;
 use crate::params::{Params, registry};
-use crate::score::{CellClass, CompareError, for_each_shared};
-use egui::{Color32, RichText};
+use crate::score::{CellClass, for_each_sampled};
+use egui::RichText;
 use std::collections::BTreeMap;
 use std::sync::Arc;
 
 /// Which map the view shows.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
 pub enum Layer {
     /// The current parameters (B).
     #[default]
@@ -34,7 +37,7 @@ pub struct Pinned {
     worker: Worker,
     generation: u64,
     /// A's grid after the current frame, once delivered: (frame, grid).
-    pub shown: Option<(usize, Grid)>,
+    pub shown: Option<(usize, Arc<Grid>)>,
     /// Bumped when `shown` changes.
     pub version: u64,
 }
@@ -42,7 +45,7 @@ pub struct Pinned {
 impl Pinned {
     /// Pins `doc`'s current parameters and starts A's rebuild at `frame`.
     pub fn pin(doc: &Document, frame: usize, ctx: Option<&egui::Context>) -> Pinned {
-        let worker = Worker::spawn();
+        let worker = Worker::spawn(PINNED_SNAPSHOT_BUDGET);
         if let Some(ctx) = ctx {
             worker.set_repaint_context(ctx);
         }
@@ -55,13 +58,13 @@ impl Pinned {
             version: 0,
         };
         p.worker
-            .request(p.generation, Some(p.builder.clone()), frame);
+            .request(p.generation, Setup::Use(p.builder.clone()), frame);
         p
     }
 
     /// Follows the timeline.
     pub fn seek(&mut self, frame: usize) {
-        self.worker.request(self.generation, None, frame);
+        self.worker.request(self.generation, Setup::Keep, frame);
     }
 
     /// Takes finished work; returns whether A's grid changed.
@@ -91,44 +94,16 @@ impl Pinned {
 /// Cell counts by (class in A, class in B).
 pub type Transitions = BTreeMap<(CellClass, CellClass), u64>;
 
-/// Counts of cells by (class in A, class in B), over the cells the two maps share.
-pub fn transition_counts(a: &Grid, b: &Grid) -> Result<Transitions, CompareError> {
+/// Counts of B's cells by (class in A, class in B), A read at each of B's cell centres (so the
+/// two may have other lattices, as after a change of resolution).
+pub fn transition_counts(a: &Grid, b: &Grid) -> Transitions {
     let mut counts = BTreeMap::new();
-    for_each_shared(b, a, |vb, va, _| {
+    for_each_sampled(b, a, &Pose2::default(), |vb, va| {
         *counts
             .entry((CellClass::of(va), CellClass::of(vb)))
             .or_insert(0) += 1;
-    })?;
-    Ok(counts)
-}
-
-/// Colour of a cell in the difference view: the direction of the change, or a faint grey of
-/// B's class where nothing changed.
-pub fn difference_colour(a: CellClass, b: CellClass) -> Color32 {
-    use CellClass::*;
-    match (a, b) {
-        (Free, Occupied) => Color32::from_rgb(230, 60, 40),
-        (Occupied, Free) => Color32::from_rgb(40, 200, 230),
-        (Unknown, Occupied) => Color32::from_rgb(245, 160, 40),
-        (Unknown, Free) => Color32::from_rgb(120, 220, 120),
-        (Occupied, Unknown) | (Free, Unknown) => Color32::from_rgb(190, 110, 230),
-        (_, Occupied) => Color32::from_gray(70),
-        (_, Free) => Color32::from_gray(200),
-        (_, Unknown) => Color32::from_gray(130),
-    }
-}
-
-/// Pixels of the difference view over B's grid, north row first.
-pub fn difference_pixels(a: &Grid, b: &Grid) -> Result<egui::ColorImage, CompareError> {
-    let spec = b.spec();
-    let (w, h) = (spec.width as usize, spec.height as usize);
-    let mut pixels = vec![Color32::from_gray(110); w * h];
-    for_each_shared(b, a, |vb, va, cell| {
-        let north_row = h - 1 - cell.row as usize;
-        pixels[north_row * w + cell.col as usize] =
-            difference_colour(CellClass::of(va), CellClass::of(vb));
-    })?;
-    Ok(egui::ColorImage::new([w, h], pixels))
+    });
+    counts
 }
 
 fn class_name(c: CellClass) -> &'static str {
@@ -198,10 +173,20 @@ pub fn differing_fields(a: &Params, b: &Params) -> Vec<(String, String, String)>
 /// Compare panel state.
 #[derive(Default)]
 pub struct ComparePanel {
-    counts: Option<((u64, u64), Result<Transitions, CompareError>)>,
+    counts: Option<((u64, u64), Transitions)>,
+    job: Option<((u64, u64), Job<Transitions>)>,
 }
 
 impl ComparePanel {
+    /// Waits for the counts being made (tests only).
+    pub fn wait(&mut self) {
+        if let Some((k, job)) = self.job.take()
+            && let Ok(counts) = job.wait()
+        {
+            self.counts = Some((k, counts));
+        }
+    }
+
     /// Draws the panel. `b` is the current grid and `b_version` its version.
     pub fn ui(
         &mut self,
@@ -209,7 +194,7 @@ impl ComparePanel {
         doc: &Document,
         pinned: Option<&Pinned>,
         layer: Layer,
-        b: Option<(&Grid, u64)>,
+        b: Option<(&Arc<Grid>, u64)>,
     ) -> Vec<Action> {
         let mut actions = Vec::new();
         ui.heading("Compare A and B");
@@ -287,44 +272,61 @@ impl ComparePanel {
             return actions;
         };
         let key = (a.version, b_version);
-        if self.counts.as_ref().map(|c| c.0) != Some(key) {
-            self.counts = Some((key, transition_counts(ga, gb)));
+        if let Some((k, job)) = &self.job
+            && let Some(done) = job.poll()
+        {
+            if let Ok(counts) = done {
+                self.counts = Some((*k, counts));
+            }
+            self.job = None;
+        }
+        let known = self.counts.as_ref().map(|c| c.0);
+        let asked = self.job.as_ref().map(|j| j.0);
+        if known != Some(key) && asked != Some(key) {
+            let (ga, gb) = (ga.clone(), gb.clone());
+            let job = Job::spawn(Some(ui.ctx().clone()), 1, move |_, _| {
+                transition_counts(&ga, &gb)
+            });
+            self.job = Some((key, job));
         }
         ui.separator();
         ui.label(format!(
-            "cells by class in A and in B (A at frame {ga_frame}):"
+            "cells by class in A and in B (A at frame {ga_frame}, read at B's cell centres):"
         ));
-        match &self.counts.as_ref().expect("just filled").1 {
-            Err(e) => {
-                ui.colored_label(Color32::from_rgb(255, 110, 90), e.to_string());
-            }
-            Ok(counts) => {
-                let changed: u64 = counts
-                    .iter()
-                    .filter(|((x, y), _)| x != y)
-                    .map(|(_, n)| n)
-                    .sum();
-                ui.label(format!("{changed} cells changed class"));
-                egui::Grid::new("ab counts").striped(true).show(ui, |ui| {
-                    ui.label("");
-                    ui.strong("A -> B");
-                    ui.strong("cells");
-                    ui.end_row();
-                    for ((x, y), n) in counts {
-                        if x == y {
-                            continue;
-                        }
-                        let (rect, _) =
-                            ui.allocate_exact_size(egui::vec2(10.0, 10.0), egui::Sense::hover());
-                        ui.painter()
-                            .rect_filled(rect, 2.0, difference_colour(*x, *y));
-                        ui.label(format!("{} -> {}", class_name(*x), class_name(*y)));
-                        ui.label(n.to_string());
-                        ui.end_row();
-                    }
-                });
-            }
+        let Some((k, counts)) = &self.counts else {
+            ui.spinner();
+            return actions;
+        };
+        if *k != key {
+            ui.horizontal(|ui| {
+                ui.spinner();
+                ui.label("counting...");
+            });
         }
+        let changed: u64 = counts
+            .iter()
+            .filter(|((x, y), _)| x != y)
+            .map(|(_, n)| n)
+            .sum();
+        ui.label(format!("{changed} cells changed class"));
+        egui::Grid::new("ab counts").striped(true).show(ui, |ui| {
+            ui.label("");
+            ui.strong("A -> B");
+            ui.strong("cells");
+            ui.end_row();
+            for ((x, y), n) in counts {
+                if x == y {
+                    continue;
+                }
+                let (rect, _) =
+                    ui.allocate_exact_size(egui::vec2(10.0, 10.0), egui::Sense::hover());
+                ui.painter()
+                    .rect_filled(rect, 2.0, difference_colour(Some(*x), *y));
+                ui.label(format!("{} -> {}", class_name(*x), class_name(*y)));
+                ui.label(n.to_string());
+                ui.end_row();
+            }
+        });
         actions
     }
 }

@@ -1,18 +1,26 @@
-//! The grid view: the map after the current frame, the robot, the frame's beams and the
-//! selected beam's footprint, with pan, zoom, picking and a hover readout.
+//! The map view: the grid after the current frame, the robot, the frame's beams and the
+//! selected beam's footprint, with pan, zoom, picking, a hover readout and a distance measure.
 //!
 //! All world <-> screen conversion goes through [`ViewTransform`]: world metres are y-up, the
-//! screen is y-down. The grid texture is uploaded only when the grid, the palette or the clamp
-//! bounds change, with nearest-neighbour sampling so cells stay crisp.
+//! screen is y-down. Pictures of the grid come from the render threads ([`super::render`]):
+//! an overview of the whole grid, and for a large grid seen close up, the part in view at one
+//! pixel per cell; a UI frame only uploads finished pictures (nearest-neighbour, so cells stay
+//! crisp). Grids of up to [`SMALL_GRID`] cells are drawn at once, in the frame.
 
-use super::palette::{cell_colour, grid_pixels, increment_colour};
+use super::overlay::{legend, overlay_text, save_view, scale_bar, sector_outline};
+use super::palette::increment_colour;
+use super::render::{MAX_SIDE, Rendered, Renderer, Request, Window, render};
 use super::{Action, Document, Notice, Selection, Settings};
 use crate::fusion::TouchRecord;
 use crate::geometry::Point2;
+use crate::grid::WorldBox;
 use crate::{CellIndex, Grid, Reading, SensorKind, probability};
 use egui::{Color32, Pos2, Rect, Sense, Shape, Stroke, TextureHandle, TextureOptions, pos2, vec2};
 use std::path::PathBuf;
 use std::sync::{Arc, Mutex};
+
+/// Grids with at most this many cells are drawn in the UI frame (a few milliseconds).
+pub const SMALL_GRID: usize = 1 << 18;
 
 /// World (metres, y up) <-> screen (points, y down) for one view rectangle.
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -55,14 +63,14 @@ pub struct ViewData<'a> {
     /// The document, if one is loaded.
     pub doc: Option<&'a Document>,
     /// The grid to show.
-    pub grid: Option<&'a Grid>,
+    pub grid: Option<&'a Arc<Grid>>,
     /// Changes whenever `grid` (or what it is compared with) does.
     pub grid_version: u64,
     /// Clamp bounds of the parameters that made `grid`, log-odds (for the palette).
-    pub clamp: crate::fusion::CellBounds,
+    pub clamp: crate::CellBounds,
     /// When set, colour cells by how their class differs from this grid (A) instead.
-    pub compare_with: Option<&'a Grid>,
-    /// Which layer is shown (part of the texture's identity).
+    pub compare_with: Option<&'a Arc<Grid>>,
+    /// Which layer is shown (part of the picture's identity).
     pub layer: super::Layer,
     /// Current frame index.
     pub frame: usize,
@@ -97,10 +105,59 @@ pub struct Hover {
     pub value: Option<f32>,
 }
 
+/// Measuring a distance on the map: when active, two clicks set the ends.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Measure {
+    /// Whether clicks on the map set measuring points (instead of selecting).
+    pub active: bool,
+    /// The points clicked, world metres (at most two).
+    pub points: Vec<Point2>,
+}
+
+impl Measure {
+    /// Starts a new measurement.
+    pub fn start(&mut self) {
+        self.active = true;
+        self.points.clear();
+    }
+
+    /// Ends measuring (the last line stays drawn until the next one starts).
+    pub fn stop(&mut self) {
+        self.active = false;
+    }
+
+    /// Takes a clicked point: the first end, the second, or a fresh first end after two.
+    pub fn click(&mut self, p: Point2) {
+        if self.points.len() >= 2 {
+            self.points.clear();
+        }
+        self.points.push(p);
+    }
+
+    /// Length (metres) and heading (radians, CCW from east) of the measured line.
+    pub fn result(&self) -> Option<(f64, f64)> {
+        let [a, b] = self.points[..] else {
+            return None;
+        };
+        Some((a.distance(b), (b.y - a.y).atan2(b.x - a.x)))
+    }
+}
+
+/// One picture of the grid on a texture, and what it is of.
+struct Picture {
+    texture: TextureHandle,
+    world: WorldBox,
+    key: u64,
+}
+
 /// State of the grid view.
 pub struct GridView {
-    texture: Option<TextureHandle>,
-    texture_key: Option<(u64, super::palette::Palette, [u32; 2], super::Layer)>,
+    overview: Option<Picture>,
+    detail: Option<(Picture, Window)>,
+    overview_renderer: Renderer,
+    detail_renderer: Renderer,
+    /// Keys of the pictures asked for and not yet arrived.
+    asked: (Option<u64>, Option<(u64, Window)>),
     /// World point at the view centre, metres.
     pub centre: Point2,
     /// Screen points per metre.
@@ -110,6 +167,8 @@ pub struct GridView {
     pub hover: Option<Hover>,
     /// The last transform used (for tests and exports).
     pub transform: Option<ViewTransform>,
+    /// The distance measure.
+    pub measure: Measure,
     export_request: Option<PathBuf>,
     export_result: Arc<Mutex<Option<Notice>>>,
 }
@@ -117,33 +176,21 @@ pub struct GridView {
 impl Default for GridView {
     fn default() -> Self {
         GridView {
-            texture: None,
-            texture_key: None,
+            overview: None,
+            detail: None,
+            overview_renderer: Renderer::default(),
+            detail_renderer: Renderer::default(),
+            asked: (None, None),
             centre: Point2::new(0.0, 0.0),
             scale: 40.0,
             fit_pending: true,
             hover: None,
             transform: None,
+            measure: Measure::default(),
             export_request: None,
             export_result: Arc::default(),
         }
     }
-}
-
-/// A "nice" length (1, 2 or 5 times a power of ten) close to `target` metres.
-pub fn nice_length(target: f64) -> f64 {
-    let p = 10f64.powf(target.log10().floor());
-    let m = target / p;
-    let k = if m < 1.5 {
-        1.0
-    } else if m < 3.5 {
-        2.0
-    } else if m < 7.5 {
-        5.0
-    } else {
-        10.0
-    };
-    k * p
 }
 
 /// Distance from `p` to segment a-b, screen points.
@@ -157,10 +204,45 @@ fn distance_to_segment(p: Pos2, a: Pos2, b: Pos2) -> f32 {
     (a + ab * t - p).length()
 }
 
+/// A number standing for everything a picture depends on.
+fn picture_key(data: &ViewData<'_>, grid: &Arc<Grid>) -> u64 {
+    use std::hash::{Hash, Hasher};
+    let mut h = std::collections::hash_map::DefaultHasher::new();
+    (
+        data.grid_version,
+        data.settings.palette,
+        data.clamp.lo.to_bits(),
+        data.clamp.hi.to_bits(),
+        data.layer,
+        Arc::as_ptr(grid) as usize,
+        data.compare_with.map(|a| Arc::as_ptr(a) as usize),
+    )
+        .hash(&mut h);
+    h.finish()
+}
+
 impl GridView {
     /// Fit the grid into the view at the next frame.
     pub fn request_fit(&mut self) {
         self.fit_pending = true;
+    }
+
+    /// Shows `centre` (world metres) at `scale` points per metre.
+    pub fn set_view(&mut self, centre: Point2, scale: f32) {
+        self.centre = centre;
+        self.scale = scale.clamp(0.01, 20_000.0);
+        self.fit_pending = false;
+    }
+
+    /// Centres the view on a world point.
+    pub fn centre_on(&mut self, p: Point2) {
+        self.centre = p;
+        self.fit_pending = false;
+    }
+
+    /// Zooms about the view's centre by `factor`.
+    pub fn zoom_by(&mut self, factor: f32) {
+        self.scale = (self.scale * factor).clamp(0.01, 20_000.0);
     }
 
     /// Save the view as PNG once it has been drawn again.
@@ -215,6 +297,121 @@ impl GridView {
         out
     }
 
+    /// Uploads a finished picture.
+    fn upload(ctx: &egui::Context, slot: &mut Option<Picture>, r: Rendered, name: &str) {
+        match slot {
+            Some(p) => {
+                p.texture.set(r.image, TextureOptions::NEAREST);
+                p.world = r.world;
+                p.key = r.key;
+            }
+            None => {
+                *slot = Some(Picture {
+                    texture: ctx.load_texture(name, r.image, TextureOptions::NEAREST),
+                    world: r.world,
+                    key: r.key,
+                })
+            }
+        }
+    }
+
+    /// Keeps the pictures of the grid up to date: asks for what changed, takes what arrived.
+    fn pictures(
+        &mut self,
+        ctx: &egui::Context,
+        data: &ViewData<'_>,
+        grid: &Arc<Grid>,
+        t: &ViewTransform,
+    ) {
+        let key = picture_key(data, grid);
+        let request = |window| Request {
+            key,
+            grid: grid.clone(),
+            compare: data.compare_with.cloned(),
+            palette: data.settings.palette,
+            bounds: data.clamp,
+            window,
+        };
+        if let Some(r) = self.overview_renderer.take() {
+            if self.asked.0 == Some(r.key) {
+                self.asked.0 = None;
+            }
+            Self::upload(ctx, &mut self.overview, r, "grid overview");
+        }
+        let current = self.overview.as_ref().map(|p| p.key);
+        if current != Some(key) && self.asked.0 != Some(key) {
+            if grid.spec().cells() <= SMALL_GRID {
+                let r = render(&request(None));
+                Self::upload(ctx, &mut self.overview, r, "grid overview");
+            } else {
+                self.overview_renderer.request(request(None));
+                self.asked.0 = Some(key);
+            }
+        }
+        // Close up on a large grid: the cells in view at one pixel each, once they fit.
+        let spec = grid.spec();
+        let large = spec.width.max(spec.height) > MAX_SIDE;
+        let view_min = spec.cell_at(t.to_world(t.rect.left_bottom()));
+        let view_max = spec.cell_at(t.to_world(t.rect.right_top()));
+        let clip = |v: i64, n: u32| v.clamp(0, n as i64) as u32;
+        let (c0, r0) = (
+            clip(view_min.col - 8, spec.width),
+            clip(view_min.row - 8, spec.height),
+        );
+        let (c1, r1) = (
+            clip(view_max.col + 9, spec.width),
+            clip(view_max.row + 9, spec.height),
+        );
+        let window = Window {
+            col: c0,
+            row: r0,
+            cols: c1.saturating_sub(c0),
+            rows: r1.saturating_sub(r0),
+        };
+        let wanted =
+            large && window.cols > 0 && window.rows > 0 && window.cols.max(window.rows) <= MAX_SIDE;
+        if let Some(r) = self.detail_renderer.take()
+            && let Some((k, w)) = self.asked.1
+            && k == r.key
+        {
+            self.asked.1 = None;
+            let mut slot = self.detail.take().map(|(p, _)| p);
+            Self::upload(ctx, &mut slot, r, "grid detail");
+            self.detail = slot.map(|p| (p, w));
+        }
+        if !wanted {
+            self.detail = None;
+            return;
+        }
+        let covered = self.detail.as_ref().is_some_and(|(p, w)| {
+            p.key == key
+                && w.col <= window.col
+                && w.row <= window.row
+                && w.col + w.cols >= window.col + window.cols
+                && w.row + w.rows >= window.row + window.rows
+        });
+        if !covered && self.asked.1.is_none() {
+            // Ask for a little more than is in view, so small pans need no new picture.
+            let grow = |a: u32, n: u32, total: u32| {
+                let extra = n / 4;
+                (
+                    a.saturating_sub(extra),
+                    (n + 2 * extra).min(total - a.saturating_sub(extra)),
+                )
+            };
+            let (col, cols) = grow(window.col, window.cols, spec.width);
+            let (row, rows) = grow(window.row, window.rows, spec.height);
+            let w = Window {
+                col,
+                row,
+                cols: cols.min(MAX_SIDE),
+                rows: rows.min(MAX_SIDE),
+            };
+            self.detail_renderer.request(request(Some(w)));
+            self.asked.1 = Some((key, w));
+        }
+    }
+
     /// Draws the view and returns what the user asked for.
     pub fn ui(&mut self, ui: &mut egui::Ui, data: ViewData<'_>) -> Vec<Action> {
         let mut actions = Vec::new();
@@ -254,19 +451,17 @@ impl GridView {
             let scroll = ui.input(|i| i.smooth_scroll_delta.y);
             let zoom = ui.input(|i| i.zoom_delta()) * (scroll * 0.002).exp();
             if (zoom - 1.0).abs() > 1e-4 {
-                let before = ViewTransform {
-                    rect,
-                    centre: self.centre,
-                    scale: self.scale,
-                }
-                .to_world(pointer);
-                self.scale = (self.scale * zoom).clamp(0.5, 20_000.0);
-                let after = ViewTransform {
-                    rect,
-                    centre: self.centre,
-                    scale: self.scale,
-                }
-                .to_world(pointer);
+                let at = |scale| {
+                    ViewTransform {
+                        rect,
+                        centre: self.centre,
+                        scale,
+                    }
+                    .to_world(pointer)
+                };
+                let before = at(self.scale);
+                self.scale = (self.scale * zoom).clamp(0.01, 20_000.0);
+                let after = at(self.scale);
                 self.centre.x += before.x - after.x;
                 self.centre.y += before.y - after.y;
             }
@@ -278,49 +473,35 @@ impl GridView {
         };
         self.transform = Some(t);
 
-        // The grid texture, re-uploaded only when something it depends on changed.
-        let crate::fusion::CellBounds { lo, hi } = data.clamp;
-        let key = (
-            data.grid_version,
-            data.settings.palette,
-            [lo.to_bits(), hi.to_bits()],
-            data.layer,
-        );
-        if self.texture_key != Some(key) || self.texture.is_none() {
-            let image = match data.compare_with {
-                Some(a) => super::compare::difference_pixels(a, grid)
-                    .unwrap_or_else(|_| grid_pixels(data.settings.palette, grid, lo, hi)),
-                None => grid_pixels(data.settings.palette, grid, lo, hi),
-            };
-            match &mut self.texture {
-                Some(tex) => tex.set(image, TextureOptions::NEAREST),
-                None => {
-                    self.texture = Some(ui.ctx().load_texture(
-                        "grid",
-                        image,
-                        TextureOptions::NEAREST,
-                    ))
-                }
-            }
-            self.texture_key = Some(key);
-        }
-        let spec = *grid.spec();
-        let b = spec.bounds();
-        let grid_rect = t.rect_of(b.min, b.max);
-        if let Some(tex) = &self.texture {
+        // The grid's pictures: the overview, and the part in view at full detail.
+        self.pictures(ui.ctx(), &data, grid, &t);
+        let uv = Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0));
+        if let Some(p) = &self.overview {
             painter.image(
-                tex.id(),
-                grid_rect,
-                Rect::from_min_max(pos2(0.0, 0.0), pos2(1.0, 1.0)),
+                p.texture.id(),
+                t.rect_of(p.world.min, p.world.max),
+                uv,
                 Color32::WHITE,
             );
         }
+        if let Some((p, _)) = &self.detail {
+            painter.image(
+                p.texture.id(),
+                t.rect_of(p.world.min, p.world.max),
+                uv,
+                Color32::WHITE,
+            );
+        }
+        let spec = *grid.spec();
+        let b = spec.bounds();
         painter.rect_stroke(
-            grid_rect,
+            t.rect_of(b.min, b.max),
             0.0,
             Stroke::new(1.0, Color32::from_gray(90)),
             egui::StrokeKind::Outside,
         );
+        // Cells are addressed on the builder's own lattice (a preview or A may be coarser).
+        let cells = *doc.builder.spec();
 
         // Robot path so far and pose.
         let frames = &doc.session.frames;
@@ -387,6 +568,16 @@ impl GridView {
         }
 
         // The selected beam's footprint, coloured by increment.
+        let cell_rect = |c: CellIndex| {
+            let lo = Point2::new(
+                cells.origin.x + c.col as f64 * cells.resolution,
+                cells.origin.y + c.row as f64 * cells.resolution,
+            );
+            t.rect_of(
+                lo,
+                Point2::new(lo.x + cells.resolution, lo.y + cells.resolution),
+            )
+        };
         if let Some((sensor, beam)) = data.selection.beam {
             let scale = data
                 .footprint
@@ -394,14 +585,7 @@ impl GridView {
                 .map(|r| r.touch.increment.abs())
                 .fold(0.0f32, f32::max);
             for rec in data.footprint {
-                let c = rec.touch.cell;
-                let lo_corner = Point2::new(
-                    spec.origin.x + c.col as f64 * spec.resolution,
-                    spec.origin.y + c.row as f64 * spec.resolution,
-                );
-                let hi_corner =
-                    Point2::new(lo_corner.x + spec.resolution, lo_corner.y + spec.resolution);
-                let r = t.rect_of(lo_corner, hi_corner);
+                let r = cell_rect(rec.touch.cell);
                 painter.rect_filled(r, 0.0, increment_colour(rec.touch.increment, scale));
                 if r.width() > 6.0 {
                     painter.rect_stroke(
@@ -420,50 +604,47 @@ impl GridView {
             }
         }
         if let Some(c) = data.selection.cell {
-            let lo_corner = Point2::new(
-                spec.origin.x + c.col as f64 * spec.resolution,
-                spec.origin.y + c.row as f64 * spec.resolution,
-            );
-            let hi_corner =
-                Point2::new(lo_corner.x + spec.resolution, lo_corner.y + spec.resolution);
-            let r = t.rect_of(lo_corner, hi_corner).expand(2.0);
             painter.rect_stroke(
-                r,
+                cell_rect(c).expand(2.0),
                 0.0,
                 Stroke::new(2.0, Color32::from_rgb(255, 80, 200)),
                 egui::StrokeKind::Outside,
             );
         }
 
-        // Picking: a click within a few points of a drawn beam selects the beam; a click
-        // elsewhere, a Shift+click or a right-click selects the cell under the pointer.
+        // Picking, or measuring: a click within a few points of a drawn beam selects the beam;
+        // a click elsewhere, a Shift+click or a right-click selects the cell under the pointer.
         let shift = ui.input(|i| i.modifiers.shift);
         let pick_cell = |p: Pos2, actions: &mut Vec<Action>| {
-            let cell = spec.cell_at(t.to_world(p));
-            if spec.index(cell).is_some() {
+            let cell = cells.cell_at(t.to_world(p));
+            if cells.index(cell).is_some() {
                 actions.push(Action::SelectCell(cell));
             }
         };
         if response.clicked()
             && let Some(p) = response.interact_pointer_pos()
         {
-            let nearest = beams
-                .iter()
-                .map(|b| {
-                    (
-                        distance_to_segment(p, t.to_screen(b.origin), t.to_screen(b.end)),
-                        b,
-                    )
-                })
-                .min_by(|a, b| a.0.total_cmp(&b.0));
-            match nearest {
-                Some((d, b)) if d <= 4.0 && data.settings.show_beams && !shift => {
-                    actions.push(Action::SelectBeam {
-                        sensor: b.sensor,
-                        beam: b.beam,
+            if self.measure.active {
+                self.measure.click(t.to_world(p));
+            } else {
+                let nearest = beams
+                    .iter()
+                    .map(|b| {
+                        (
+                            distance_to_segment(p, t.to_screen(b.origin), t.to_screen(b.end)),
+                            b,
+                        )
                     })
+                    .min_by(|a, b| a.0.total_cmp(&b.0));
+                match nearest {
+                    Some((d, b)) if d <= 4.0 && data.settings.show_beams && !shift => {
+                        actions.push(Action::SelectBeam {
+                            sensor: b.sensor,
+                            beam: b.beam,
+                        })
+                    }
+                    _ => pick_cell(p, &mut actions),
                 }
-                _ => pick_cell(p, &mut actions),
             }
         }
         if response.secondary_clicked()
@@ -471,15 +652,16 @@ impl GridView {
         {
             pick_cell(p, &mut actions);
         }
+        self.measure_ui(&painter, &t, rect, response.hover_pos());
 
         // Hover readout.
         self.hover = response.hover_pos().map(|p| {
             let world = t.to_world(p);
-            let cell = spec.cell_at(world);
+            let cell = cells.cell_at(world);
             Hover {
                 world,
                 cell,
-                value: grid.get(cell),
+                value: grid.get(grid.spec().cell_at(world)),
             }
         });
         if let Some(h) = self.hover {
@@ -508,13 +690,19 @@ impl GridView {
 
         scale_bar(&painter, rect, self.scale);
         if data.compare_with.is_none() {
-            legend(&painter, rect, data.settings.palette, lo, hi);
+            legend(
+                &painter,
+                rect,
+                data.settings.palette,
+                data.clamp.lo,
+                data.clamp.hi,
+            );
         } else {
             overlay_text(
                 &painter,
                 rect.right_bottom() + vec2(-12.0, -12.0),
                 egui::Align2::RIGHT_BOTTOM,
-                "difference A -> B: see the Compare tab for colours and counts",
+                "difference A -> B (A read at B's cell centres): see the Compare tab for colours",
             );
         }
 
@@ -536,167 +724,47 @@ impl GridView {
         }
         actions
     }
-}
 
-/// Outline of a sector as screen points.
-fn sector_outline(
-    t: &ViewTransform,
-    origin: Point2,
-    heading: f64,
-    width: f64,
-    r: f64,
-) -> Vec<Pos2> {
-    let mut pts = vec![t.to_screen(origin)];
-    let n = 16;
-    for k in 0..=n {
-        let a = heading - width / 2.0 + width * k as f64 / n as f64;
-        pts.push(t.to_screen(Point2::new(origin.x + r * a.cos(), origin.y + r * a.sin())));
-    }
-    pts
-}
-
-fn overlay_text(painter: &egui::Painter, at: Pos2, align: egui::Align2, text: &str) {
-    let galley = painter.layout_no_wrap(
-        text.to_string(),
-        egui::FontId::monospace(13.0),
-        Color32::WHITE,
-    );
-    let r = align.anchor_size(at, galley.size()).expand(4.0);
-    painter.rect_filled(r, 3.0, Color32::from_black_alpha(170));
-    painter.galley(r.min + vec2(4.0, 4.0), galley, Color32::WHITE);
-}
-
-fn scale_bar(painter: &egui::Painter, rect: Rect, scale: f32) {
-    let metres = nice_length((110.0 / scale) as f64);
-    let px = metres as f32 * scale;
-    let base = rect.left_bottom() + vec2(16.0, -18.0);
-    let stroke = Stroke::new(2.0, Color32::WHITE);
-    painter.rect_filled(
-        Rect::from_min_size(base + vec2(-6.0, -22.0), vec2(px + 12.0, 30.0)),
-        3.0,
-        Color32::from_black_alpha(150),
-    );
-    painter.line_segment([base, base + vec2(px, 0.0)], stroke);
-    painter.line_segment([base + vec2(0.0, -5.0), base + vec2(0.0, 3.0)], stroke);
-    painter.line_segment([base + vec2(px, -5.0), base + vec2(px, 3.0)], stroke);
-    let label = if metres >= 1.0 {
-        format!("{metres} m")
-    } else {
-        format!("{} cm", metres * 100.0)
-    };
-    painter.text(
-        base + vec2(px / 2.0, -6.0),
-        egui::Align2::CENTER_BOTTOM,
-        label,
-        egui::FontId::proportional(12.0),
-        Color32::WHITE,
-    );
-}
-
-fn legend(painter: &egui::Painter, rect: Rect, palette: super::palette::Palette, lo: f32, hi: f32) {
-    let size = vec2(220.0, 14.0);
-    let origin = rect.right_bottom() + vec2(-size.x - 20.0, -40.0);
-    painter.rect_filled(
-        Rect::from_min_size(origin + vec2(-8.0, -22.0), size + vec2(16.0, 46.0)),
-        3.0,
-        Color32::from_black_alpha(150),
-    );
-    let n = 64;
-    for k in 0..n {
-        let u = k as f32 / (n - 1) as f32;
-        let l = lo + (hi - lo) * u;
-        let x0 = origin.x + size.x * k as f32 / n as f32;
-        let r = Rect::from_min_size(pos2(x0, origin.y), vec2(size.x / n as f32 + 0.5, size.y));
-        painter.rect_filled(r, 0.0, cell_colour(palette, l, lo, hi));
-    }
-    let zero_x = origin.x + size.x * (-lo / (hi - lo));
-    painter.line_segment(
-        [
-            pos2(zero_x, origin.y - 3.0),
-            pos2(zero_x, origin.y + size.y + 3.0),
-        ],
-        Stroke::new(1.0, Color32::WHITE),
-    );
-    let font = egui::FontId::proportional(11.0);
-    painter.text(
-        origin + vec2(0.0, -4.0),
-        egui::Align2::LEFT_BOTTOM,
-        "free",
-        font.clone(),
-        Color32::WHITE,
-    );
-    painter.text(
-        origin + vec2(size.x, -4.0),
-        egui::Align2::RIGHT_BOTTOM,
-        "occupied",
-        font.clone(),
-        Color32::WHITE,
-    );
-    let below = origin.y + size.y + 3.0;
-    painter.text(
-        pos2(origin.x, below),
-        egui::Align2::LEFT_TOP,
-        format!("{lo:+.2}"),
-        font.clone(),
-        Color32::WHITE,
-    );
-    painter.text(
-        pos2(origin.x + size.x, below),
-        egui::Align2::RIGHT_TOP,
-        format!("{hi:+.2} log-odds"),
-        font.clone(),
-        Color32::WHITE,
-    );
-    // "Unknown" (log-odds 0) is labelled only where the labels at the ends leave room.
-    if zero_x - origin.x > 50.0 && origin.x + size.x - zero_x > 80.0 {
-        painter.text(
-            pos2(zero_x, below),
-            egui::Align2::CENTER_TOP,
-            "0",
-            font.clone(),
-            Color32::WHITE,
-        );
-        painter.text(
-            pos2(zero_x, origin.y - 4.0),
-            egui::Align2::CENTER_BOTTOM,
-            "unknown",
-            font,
-            Color32::WHITE,
-        );
-    }
-}
-
-/// Crops a screenshot to the view rectangle and writes it as PNG.
-fn save_view(
-    image: &egui::ColorImage,
-    rect: Rect,
-    ppp: f32,
-    path: &std::path::Path,
-) -> Result<(), String> {
-    let [w, h] = image.size;
-    let x0 = ((rect.min.x * ppp).round().max(0.0) as usize).min(w);
-    let y0 = ((rect.min.y * ppp).round().max(0.0) as usize).min(h);
-    let x1 = ((rect.max.x * ppp).round().max(0.0) as usize).min(w);
-    let y1 = ((rect.max.y * ppp).round().max(0.0) as usize).min(h);
-    if x1 <= x0 || y1 <= y0 {
-        return Err("the view is empty".into());
-    }
-    let mut out = image::RgbaImage::new((x1 - x0) as u32, (y1 - y0) as u32);
-    for y in y0..y1 {
-        for x in x0..x1 {
-            let c = image.pixels[y * w + x];
-            out.put_pixel(
-                (x - x0) as u32,
-                (y - y0) as u32,
-                image::Rgba([c.r(), c.g(), c.b(), 255]),
+    /// The measured line, its length and heading, and a hint while measuring.
+    fn measure_ui(
+        &self,
+        painter: &egui::Painter,
+        t: &ViewTransform,
+        rect: Rect,
+        pointer: Option<Pos2>,
+    ) {
+        let stroke = Stroke::new(2.0, Color32::from_rgb(250, 240, 80));
+        let ends: Vec<Pos2> = self
+            .measure
+            .points
+            .iter()
+            .map(|p| t.to_screen(*p))
+            .collect();
+        for e in &ends {
+            painter.circle_stroke(*e, 4.0, stroke);
+        }
+        if let (true, [a], Some(p)) = (self.measure.active, &ends[..], pointer) {
+            painter.line_segment([*a, p], Stroke::new(1.0, stroke.color));
+        }
+        if let Some((length, heading)) = self.measure.result() {
+            painter.line_segment([ends[0], ends[1]], stroke);
+            let mid = ends[0] + (ends[1] - ends[0]) / 2.0;
+            overlay_text(
+                painter,
+                mid + vec2(8.0, -8.0),
+                egui::Align2::LEFT_BOTTOM,
+                &format!("{length:.3} m, heading {:.1} deg", heading.to_degrees()),
+            );
+        }
+        if self.measure.active {
+            overlay_text(
+                painter,
+                rect.center_top() + vec2(0.0, 8.0),
+                egui::Align2::CENTER_TOP,
+                "measuring: click two points (Esc ends)",
             );
         }
     }
-    let mut bytes = std::io::Cursor::new(Vec::new());
-    out.write_to(&mut bytes, image::ImageFormat::Png)
-        .map_err(|e| e.to_string())?;
-    crate::io::atomic::write_all_atomically(&[(path.to_path_buf(), bytes.into_inner())])
-        .map_err(|e| e.to_string())
 }
 
 #[cfg(test)]
@@ -719,10 +787,16 @@ mod tests {
     }
 
     #[test]
-    fn nice_lengths() {
-        assert_eq!(nice_length(1.2), 1.0);
-        assert_eq!(nice_length(2.9), 2.0);
-        assert_eq!(nice_length(0.06), 0.05);
-        assert_eq!(nice_length(80.0), 100.0);
+    fn measuring_two_points() {
+        // Geometry of a simple case: a 3-4-5 triangle.
+        let mut m = Measure::default();
+        m.start();
+        m.click(Point2::new(1.0, 1.0));
+        assert_eq!(m.result(), None);
+        m.click(Point2::new(4.0, 5.0));
+        let (d, h) = m.result().unwrap();
+        assert!((d - 5.0).abs() < 1e-12 && (h - (4.0f64).atan2(3.0)).abs() < 1e-12);
+        m.click(Point2::new(0.0, 0.0));
+        assert_eq!(m.points.len(), 1);
     }
 }

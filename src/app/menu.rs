@@ -1,12 +1,16 @@
-//! The menu bar and its file prompt: open, recent files, save, export, demos and view choices.
+//! The menu bar and its file prompt: File (open, recent files, save, export), Edit (undo,
+//! redo), Navigate (go to a frame or a point, fit), Demos, View (palette, layers, measuring)
+//! and Help (the keyboard shortcuts).
 //!
 //! Every file action goes through one small prompt window with a path field and a "Browse"
 //! button for the system file dialog, so the window works the same on a desktop and on a
 //! machine without a file-dialog service (the path field alone is enough).
 
+use super::dialogs::Dialog;
+use super::grid_view::Measure;
 use super::palette::Palette;
 use super::settings::Settings;
-use super::{Action, Document, Source};
+use super::{Action, Document, Edits, Source};
 use crate::demo::DEMOS;
 use std::path::PathBuf;
 
@@ -59,13 +63,19 @@ pub struct Prompt {
 pub struct FileMenu {
     /// The open prompt, if any.
     pub prompt: Option<Prompt>,
+    /// Close the window once the parameters are saved (the answer to the unsaved question).
+    pub close_after_save: bool,
 }
 
 fn default_stem(doc: Option<&Document>) -> String {
     match doc.map(|d| &d.source) {
         Some(Source::File(p)) => {
             let s = p.to_string_lossy();
-            s.strip_suffix(".session.ron").unwrap_or(&s).to_string()
+            [".session.ron", ".plan.ron", ".ron"]
+                .iter()
+                .find_map(|suffix| s.strip_suffix(suffix))
+                .unwrap_or(&s)
+                .to_string()
         }
         Some(Source::Demo(n)) => n.to_string(),
         None => "map".into(),
@@ -82,7 +92,7 @@ impl FileMenu {
                 .and_then(|d| d.params_path.as_ref())
                 .map(|p| p.display().to_string())
                 .unwrap_or(format!("{stem}.params.ron")),
-            Purpose::ExportBundle => format!("{stem}.map"),
+            Purpose::ExportBundle => stem,
             Purpose::ExportView => format!("{stem}.view.png"),
         };
         self.prompt = Some(Prompt {
@@ -98,11 +108,13 @@ impl FileMenu {
         ui: &mut egui::Ui,
         settings: &mut Settings,
         doc: Option<&Document>,
+        edits: &Edits,
+        measure: &mut Measure,
     ) -> Vec<Action> {
         let mut actions = Vec::new();
         egui::MenuBar::new().ui(ui, |ui| {
             ui.menu_button("File", |ui| {
-                if ui.button("Open...").on_hover_text("A session (*.session.ron), a floor plan (*.plan.ron, simulated first) or a parameter profile (*.params.ron). Files dropped on the window open too.").clicked() {
+                if ui.add(egui::Button::new("Open...").shortcut_text("Ctrl+O")).on_hover_text("A session (*.session.ron), a floor plan (*.plan.ron, simulated first) or a parameter profile (*.params.ron). Files dropped on the window open too.").clicked() {
                     self.open_prompt(Purpose::Open, doc);
                 }
                 ui.menu_button("Recent sessions", |ui| {
@@ -127,14 +139,37 @@ impl FileMenu {
                 });
                 ui.separator();
                 let loaded = doc.is_some();
-                if ui.add_enabled(loaded, egui::Button::new("Save parameters...")).clicked() {
+                if ui.add_enabled(loaded, egui::Button::new("Save parameters...").shortcut_text("Ctrl+S")).clicked() {
                     self.open_prompt(Purpose::SaveParams, doc);
                 }
-                if ui.add_enabled(loaded, egui::Button::new("Export map bundle...")).on_hover_text("The grid after the current frame, with the parameters that made it").clicked() {
+                if ui.add_enabled(loaded, egui::Button::new("Export map bundle...").shortcut_text("Ctrl+E")).on_hover_text("The grid after the current frame, with the parameters that made it").clicked() {
                     self.open_prompt(Purpose::ExportBundle, doc);
                 }
-                if ui.add_enabled(loaded, egui::Button::new("Export view as PNG...")).on_hover_text("The map view as it appears on screen").clicked() {
+                if ui.add_enabled(loaded, egui::Button::new("Export view as PNG...").shortcut_text("Ctrl+Shift+E")).on_hover_text("The map view as it appears on screen").clicked() {
                     self.open_prompt(Purpose::ExportView, doc);
+                }
+            });
+            ui.menu_button("Edit", |ui| {
+                if ui
+                    .add_enabled(edits.can_undo(), egui::Button::new("Undo parameter edit").shortcut_text("Ctrl+Z"))
+                    .clicked()
+                {
+                    actions.push(Action::Undo);
+                }
+                if ui
+                    .add_enabled(edits.can_redo(), egui::Button::new("Redo").shortcut_text("Ctrl+Shift+Z"))
+                    .clicked()
+                {
+                    actions.push(Action::Redo);
+                }
+            });
+            ui.menu_button("Navigate", |ui| {
+                let loaded = doc.is_some();
+                if ui.add_enabled(loaded, egui::Button::new("Go to frame...").shortcut_text("Ctrl+G")).clicked() {
+                    actions.push(Action::Ask(Dialog::GoToFrame { text: String::new() }));
+                }
+                if ui.add_enabled(loaded, egui::Button::new("Go to point...").shortcut_text("Ctrl+L")).clicked() {
+                    actions.push(Action::Ask(Dialog::GoToPoint { x: 0.0, y: 0.0 }));
                 }
             });
             ui.menu_button("Demos", |ui| {
@@ -154,7 +189,16 @@ impl FileMenu {
                 ui.checkbox(&mut settings.show_tuning, "Tuning panel");
                 ui.checkbox(&mut settings.show_inspector, "Inspector panel");
                 ui.separator();
-                ui.label("Drag to pan, scroll to zoom, double-click to fit.");
+                if ui.add(egui::Button::new("Measure a distance").shortcut_text("M")).on_hover_text("Click two points on the map; Esc ends").clicked() {
+                    measure.start();
+                }
+                ui.label("Drag to pan, scroll or +/- to zoom, F or double-click to fit.");
+            });
+            ui.menu_button("Help", |ui| {
+                if ui.add(egui::Button::new("Keyboard shortcuts").shortcut_text("F1")).clicked() {
+                    actions.push(Action::Ask(Dialog::Shortcuts));
+                }
+                ui.label(crate::SAFETY_NOTICE);
             });
         });
         actions.extend(self.prompt_ui(ui));

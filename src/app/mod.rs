@@ -1,18 +1,24 @@
-//! The inspector window: application state, the frame loop, and how panels' actions apply.
+//! The inspector window: application state and the frame loop.
 //!
-//! Design decision: panels never reach into each other. Each draws from read-only data and
-//! returns [`Action`]s; [`GridscopeApp::apply`] carries them out after the panels are drawn.
-//! Fusion never runs in a UI frame: the rebuild worker replays the session on its own thread and
-//! the window shows the newest grid it has been sent.
+//! Design decision: nothing heavy runs in a UI frame. The rebuild worker makes builders and
+//! replays the session; file reads and writes, scores, histories, searches and sweeps run as
+//! background jobs; pictures of the grid are made by a render thread. A frame drains what they
+//! finished, draws the panels, and applies the [`Action`]s the panels returned
+//! ([`actions`]); the document's files are handled in [`document`].
 
+mod actions;
 mod beam_panel;
 mod cell_panel;
 mod changes_panel;
 mod compare;
+mod dialogs;
+mod document;
 mod grid_view;
 mod jobs;
 mod menu;
+mod overlay;
 pub mod palette;
+mod render;
 mod score_panel;
 pub mod settings;
 mod status;
@@ -21,96 +27,35 @@ mod timeline;
 mod tuning;
 mod worker;
 
+pub use actions::{Action, Edits};
 pub use beam_panel::BeamPanel;
-pub use cell_panel::CellPanel;
+pub use cell_panel::{CellPanel, history_points};
 pub use changes_panel::ChangesPanel;
 pub use compare::{ComparePanel, Layer, Pinned};
-pub use grid_view::{GridView, ViewTransform};
+pub use dialogs::{Dialog, SHORTCUTS};
+pub use document::{Document, Restore, Shown, Source};
+pub use grid_view::{GridView, Measure, ViewTransform};
 pub use menu::FileMenu;
 pub use score_panel::{Reference, ScorePanel};
-pub use settings::{InspectorTab, Settings};
+pub use settings::{InspectorTab, LastSession, Settings};
 pub use sweep_panel::SweepPanel;
 pub use timeline::Timeline;
-pub use tuning::TuningPanel;
+pub use tuning::{TuningPanel, model_plot_bounds};
 
-use crate::demo;
-use crate::export::{ExportOptions, Provenance, write_bundle};
-use crate::fusion::{MapBuilder, TouchRecord};
-use crate::session::SessionStats;
-use crate::{BeamRef, CellIndex, Grid, Params, Session};
-use std::path::{Path, PathBuf};
+use crate::fusion::TouchRecord;
+use crate::replay::DEFAULT_SNAPSHOT_BUDGET;
+use crate::{BeamRef, CellIndex, Grid};
+use dialogs::Answer;
+use std::path::PathBuf;
 use std::sync::Arc;
 use std::time::Duration;
-use worker::{Reply, Worker};
+use worker::{Reply, Setup, Worker};
 
-/// Something a panel asks the application to do.
-#[derive(Clone, Debug, PartialEq)]
-#[must_use]
-pub enum Action {
-    /// Show the grid after this frame.
-    Seek(usize),
-    /// Rebuild with these (already validated) parameters.
-    SetParams(Params),
-    /// Inspect beam `beam` of sensor `sensor` in the current frame.
-    SelectBeam {
-        /// Sensor index.
-        sensor: usize,
-        /// Beam index.
-        beam: usize,
-    },
-    /// Inspect a cell.
-    SelectCell(CellIndex),
-    /// Drop the beam selection.
-    ClearBeam,
-    /// Open a session file (or a plan, which is simulated first).
-    OpenSession(PathBuf),
-    /// Open an embedded demo.
-    OpenDemo(&'static str),
-    /// Load a parameter profile.
-    OpenParams(PathBuf),
-    /// Save the current parameters.
-    SaveParams(PathBuf),
-    /// Export the current grid as a map bundle.
-    ExportBundle {
-        /// The bundle's prefix.
-        prefix: PathBuf,
-        /// Also write a Netpbm `.pgm`.
-        pgm: bool,
-    },
-    /// Save the grid view as it appears on screen, as PNG.
-    ExportView(PathBuf),
-    /// Open whatever this file is, judged by its name.
-    OpenAny(PathBuf),
-    /// Go to a frame and inspect one of its beams.
-    JumpTo {
-        /// Frame index.
-        frame: usize,
-        /// Sensor index.
-        sensor: usize,
-        /// Beam index.
-        beam: usize,
-    },
-    /// Centre the view on a cell and inspect it.
-    FocusCell(CellIndex),
-    /// Pin the current parameters as A.
-    PinA,
-    /// Drop A.
-    UnpinA,
-    /// Choose what the map shows.
-    SetLayer(Layer),
-    /// Load a reference map bundle.
-    LoadReference(PathBuf),
-    /// Load a greyscale image as reference.
-    LoadReferenceImage(crate::export::ImageReference),
-    /// Use the plan of an embedded demo as reference.
-    UseDemoReference(&'static str),
-    /// Start the sweep set up in the sweep panel.
-    StartSweep,
-    /// Start the change search set up in the changes panel.
-    FindChanges,
-    /// Show an inspector tab.
-    ShowTab(InspectorTab),
-}
+/// Memory for the snapshots of the map's replay, bytes.
+pub const SNAPSHOT_BUDGET: usize = DEFAULT_SNAPSHOT_BUDGET;
+
+/// Memory for the snapshots of the pinned map A's replay, bytes.
+pub const PINNED_SNAPSHOT_BUDGET: usize = DEFAULT_SNAPSHOT_BUDGET / 4;
 
 /// An x axis for the panels' plots: labelled, with tick labels kept at 30-45 points apart so
 /// that narrow side panels still show several of them.
@@ -120,60 +65,6 @@ pub(crate) fn plot_x_axis(label: &str) -> Vec<egui_plot::AxisHints<'static>> {
             .label(label.to_string())
             .label_spacing(30.0..=45.0),
     ]
-}
-
-/// The grid to show: a rebuild's partial grid while one runs, else the current frame's.
-fn displayed<'a>(partial: &'a Option<Grid>, shown: &'a Option<Shown>) -> Option<&'a Grid> {
-    partial.as_ref().or(shown.as_ref().map(|s| &s.after))
-}
-
-/// Where the loaded session came from.
-#[derive(Clone, Debug, PartialEq)]
-pub enum Source {
-    /// A file on disk.
-    File(PathBuf),
-    /// An embedded demo, by name.
-    Demo(&'static str),
-}
-
-impl Source {
-    /// How the source is shown.
-    pub fn label(&self) -> String {
-        match self {
-            Source::File(p) => p.display().to_string(),
-            Source::Demo(n) => format!("demo:{n}"),
-        }
-    }
-}
-
-/// A loaded session with the parameters currently applied to it.
-pub struct Document {
-    /// Where it came from.
-    pub source: Source,
-    /// The session.
-    pub session: Arc<Session>,
-    /// Its counts.
-    pub stats: SessionStats,
-    /// The parameters of the grid shown (always valid).
-    pub params: Params,
-    /// Where those parameters were loaded from or saved to, if anywhere.
-    pub params_path: Option<PathBuf>,
-    /// The builder for `params`.
-    pub builder: Arc<MapBuilder>,
-    /// Increases with every new builder; results of older builders are dropped.
-    pub generation: u64,
-}
-
-/// The grids the worker delivered for the current generation.
-pub struct Shown {
-    /// Builder generation.
-    pub generation: u64,
-    /// Frame index.
-    pub frame: usize,
-    /// Grid after frames `0..frame`.
-    pub before: Grid,
-    /// Grid after frames `0..=frame`: what the view shows.
-    pub after: Grid,
 }
 
 /// What is selected for inspection.
@@ -207,9 +98,9 @@ pub struct GridscopeApp {
     pub frame: usize,
     /// Grids for the frame shown.
     pub shown: Option<Shown>,
-    /// A partial grid of a rebuild in progress.
-    pub partial: Option<Grid>,
-    /// Bumped whenever the displayed grid changes (drives texture uploads).
+    /// A coarse preview of a rebuild in progress.
+    pub partial: Option<Arc<Grid>>,
+    /// Bumped whenever the displayed grid changes (drives the pictures of the map).
     pub grid_version: u64,
     /// What is inspected.
     pub selection: Selection,
@@ -223,7 +114,7 @@ pub struct GridscopeApp {
     pub tuning: TuningPanel,
     /// The beam inspector.
     pub beam_panel: BeamPanel,
-    /// The file menu and its dialogs.
+    /// The menus and their file prompt.
     pub file_menu: FileMenu,
     /// The cell history.
     pub cell_panel: CellPanel,
@@ -241,11 +132,31 @@ pub struct GridscopeApp {
     pub layer: Layer,
     /// The reference map, if loaded.
     pub reference: Option<Reference>,
+    /// The open dialog, if any.
+    pub dialog: Option<Dialog>,
+    /// Undo and redo of parameter edits.
+    pub edits: Edits,
+    tasks: Vec<document::Task>,
     reference_versions: u64,
     repaint: Option<egui::Context>,
     worker: Worker,
+    /// The worker may have lost its replay (after a failure): send it the builder again.
+    resend_builder: bool,
     next_generation: u64,
     probe: Option<(ProbeKey, Vec<TouchRecord>)>,
+    /// The user chose to close without saving.
+    allow_close: bool,
+    title: String,
+    /// Parameters to apply once the session being opened at start is there.
+    pending_params: Option<PendingParams>,
+}
+
+/// Parameters waiting for the first session to open.
+enum PendingParams {
+    /// As they were when the window last closed.
+    Restored(Box<crate::Params>),
+    /// From a profile named on the command line.
+    File(PathBuf),
 }
 
 impl GridscopeApp {
@@ -273,169 +184,48 @@ impl GridscopeApp {
             pinned: None,
             layer: Layer::Current,
             reference: None,
+            dialog: None,
+            edits: Edits::default(),
+            tasks: Vec::new(),
             reference_versions: 0,
             repaint: None,
-            worker: Worker::spawn(),
+            worker: Worker::spawn(SNAPSHOT_BUDGET),
+            resend_builder: false,
             next_generation: 1,
             probe: None,
+            allow_close: false,
+            title: String::new(),
+            pending_params: None,
         }
     }
 
-    /// An application showing the first embedded demo at its last frame.
+    /// An application opening the first embedded demo at its last frame (in the background;
+    /// [`GridscopeApp::wait_for_everything`] waits for it).
     pub fn with_demo(settings: Settings) -> Self {
         let mut app = Self::new(settings);
-        app.open_demo(demo::DEMOS[0].name);
+        app.open_demo(crate::demo::DEMOS[0].name);
         app
     }
 
-    // ----- loading ---------------------------------------------------------------------------
-
-    /// Opens a session file (or simulates a `*.plan.ron` first, or opens the embedded demo
-    /// named by `demo:NAME`); on failure keeps what was loaded and says why.
-    pub fn open_session(&mut self, path: &Path) {
-        if let Some(name) = path.to_str().and_then(|s| s.strip_prefix("demo:")) {
-            // `demo:NAME`, as the batch commands take it.
-            match demo::find(name) {
-                Ok(d) => self.open_demo(d.name),
-                Err(e) => self.problem(e.to_string()),
+    /// An application that opens what the user had open last (its session, parameters, frame
+    /// and view), or the first demo when there is nothing to restore.
+    pub fn restoring(settings: Settings) -> Self {
+        let last = settings.last.clone();
+        let mut app = Self::new(settings);
+        match last {
+            Some(l) => {
+                app.open_session_restoring(
+                    &PathBuf::from(&l.session),
+                    Some(Restore {
+                        frame: l.frame,
+                        view: l.view,
+                    }),
+                );
+                app.pending_params = Some(PendingParams::Restored(Box::new(l.params)));
             }
-            return;
+            None => app.open_demo(crate::demo::DEMOS[0].name),
         }
-        let loaded = if path.to_string_lossy().ends_with(".plan.ron") {
-            crate::sim::FloorPlan::load(path).and_then(|plan| crate::sim::simulate(&plan))
-        } else {
-            Session::load(path)
-        };
-        match loaded {
-            Ok(session) => {
-                let params = self
-                    .doc
-                    .as_ref()
-                    .map(|d| d.params.clone())
-                    .unwrap_or_default();
-                let params_path = self.doc.as_ref().and_then(|d| d.params_path.clone());
-                if self.install(
-                    Source::File(path.to_path_buf()),
-                    session,
-                    params,
-                    params_path,
-                ) {
-                    settings::remember(&mut self.settings.recent_sessions, path);
-                }
-            }
-            Err(e) => self.problem(e.to_string()),
-        }
-    }
-
-    /// Opens an embedded demo with its suggested parameters.
-    pub fn open_demo(&mut self, name: &'static str) {
-        let loaded = demo::session(name).and_then(|s| Ok((s, demo::params(name)?)));
-        match loaded {
-            Ok((session, params)) => {
-                self.install(Source::Demo(name), session, params, None);
-            }
-            Err(e) => self.problem(e.to_string()),
-        }
-    }
-
-    /// Makes `session` the document if a builder can be made for it. Returns success.
-    fn install(
-        &mut self,
-        source: Source,
-        session: Session,
-        params: Params,
-        params_path: Option<PathBuf>,
-    ) -> bool {
-        let session = Arc::new(session);
-        match MapBuilder::new(session.clone(), params.clone()) {
-            Ok(builder) => {
-                let generation = self.bump_generation();
-                let last = session.frames.len().saturating_sub(1);
-                self.notice = Some(Notice::Info(format!(
-                    "opened {} ({} frames)",
-                    source.label(),
-                    session.frames.len()
-                )));
-                self.doc = Some(Document {
-                    stats: session.stats(),
-                    source,
-                    session,
-                    params,
-                    params_path,
-                    builder: Arc::new(builder),
-                    generation,
-                });
-                self.frame = last;
-                self.shown = None;
-                self.partial = None;
-                self.selection = Selection::default();
-                self.grid_view.request_fit();
-                self.tuning.reset();
-                self.timeline.stop();
-                self.pinned = None;
-                self.layer = Layer::Current;
-                self.reference = None;
-                self.changes_panel = ChangesPanel::default();
-                self.sweep_panel = SweepPanel::default();
-                if let Some(Source::Demo(name)) = self.doc.as_ref().map(|d| d.source.clone()) {
-                    self.use_demo_reference(name);
-                }
-                self.request_grid(true);
-                true
-            }
-            Err(e) => {
-                self.problem(e.for_input(&source.label()).to_string());
-                false
-            }
-        }
-    }
-
-    /// Loads a parameter profile (or a demo's, `demo:NAME`) and rebuilds with it.
-    pub fn open_params(&mut self, path: &Path) {
-        let demo = path.to_str().and_then(|s| s.strip_prefix("demo:"));
-        let loaded = match demo {
-            Some(name) => demo::params(name),
-            None => Params::load(path),
-        };
-        match loaded {
-            Ok(p) => {
-                if self.set_params(p) {
-                    if let Some(d) = &mut self.doc {
-                        d.params_path = demo.is_none().then(|| path.to_path_buf());
-                    }
-                    if demo.is_none() {
-                        settings::remember(&mut self.settings.recent_params, path);
-                    }
-                    self.notice = Some(Notice::Info(format!("parameters from {}", path.display())));
-                }
-            }
-            Err(e) => self.problem(e.to_string()),
-        }
-    }
-
-    /// Applies new parameters: a new builder and a rebuild in the background. Returns success;
-    /// on failure the old parameters stay.
-    pub fn set_params(&mut self, params: Params) -> bool {
-        let Some(doc) = &self.doc else {
-            self.problem("open a session before setting parameters".into());
-            return false;
-        };
-        match MapBuilder::new(doc.session.clone(), params.clone()) {
-            Ok(builder) => {
-                let generation = self.bump_generation();
-                let doc = self.doc.as_mut().expect("checked above");
-                doc.params = params;
-                doc.builder = Arc::new(builder);
-                doc.generation = generation;
-                self.tuning.reset();
-                self.request_grid(true);
-                true
-            }
-            Err(e) => {
-                self.problem(format!("parameters not applied: {e}"));
-                false
-            }
-        }
+        app
     }
 
     fn bump_generation(&mut self) -> u64 {
@@ -444,15 +234,20 @@ impl GridscopeApp {
         g
     }
 
-    fn problem(&mut self, message: String) {
-        self.notice = Some(Notice::Problem(message));
-    }
-
-    /// Asks the worker for the current frame (with the builder when it is new).
-    fn request_grid(&mut self, new_builder: bool) {
+    /// Asks the worker for the current frame.
+    fn request_grid(&mut self) {
         if let Some(doc) = &self.doc {
-            let builder = new_builder.then(|| doc.builder.clone());
-            self.worker.request(doc.generation, builder, self.frame);
+            let setup = if std::mem::take(&mut self.resend_builder) {
+                Setup::Use(doc.builder.clone())
+            } else {
+                Setup::Keep
+            };
+            let generation = if matches!(setup, Setup::Use(_)) {
+                doc.built
+            } else {
+                doc.generation
+            };
+            self.worker.request(generation, setup, self.frame);
         }
     }
 
@@ -461,7 +256,7 @@ impl GridscopeApp {
         let Some(doc) = &self.doc else { return };
         let last = doc.session.frames.len().saturating_sub(1);
         self.frame = frame.min(last);
-        self.request_grid(false);
+        self.request_grid();
         if let Some(p) = &mut self.pinned {
             p.seek(self.frame);
         }
@@ -474,47 +269,85 @@ impl GridscopeApp {
         }
     }
 
-    fn set_reference(&mut self, label: String, grid: Grid) {
-        self.reference_versions += 1;
-        self.reference = Some(Reference {
-            label,
-            grid: Arc::new(grid),
-            version: self.reference_versions,
-        });
-    }
-
-    /// Uses an embedded demo's plan as the reference.
-    pub fn use_demo_reference(&mut self, name: &'static str) {
-        match demo::reference(name) {
-            Ok(g) => self.set_reference(format!("plan of demo {name}"), g),
-            Err(e) => self.problem(e.to_string()),
+    /// Test hook: the rebuild worker's next job fails as if by an internal fault, so that
+    /// recovery can be checked.
+    #[doc(hidden)]
+    pub fn crash_worker(&mut self) {
+        if let Some(doc) = &self.doc {
+            self.worker.crash_next(doc.generation, self.frame);
         }
     }
 
-    /// Loads a reference map bundle.
-    pub fn load_reference(&mut self, path: &Path) {
-        match crate::export::load_bundle(path, crate::grid::DEFAULT_CELL_BUDGET) {
-            Ok(b) => {
-                self.notice = Some(Notice::Info(format!("reference: {}", b.prefix.display())));
-                self.set_reference(b.prefix.display().to_string(), b.grid)
+    // ----- worker results --------------------------------------------------------------------
+
+    fn take_replies(&mut self, replies: Vec<Reply>) {
+        for r in replies {
+            let Some(doc) = &mut self.doc else { return };
+            match r {
+                Reply::Built {
+                    generation,
+                    builder,
+                } if generation == doc.generation => {
+                    doc.builder = builder;
+                    doc.built = generation;
+                }
+                Reply::Progress {
+                    generation,
+                    preview: Some(grid),
+                    ..
+                } if generation == doc.generation => {
+                    self.partial = Some(grid);
+                    self.grid_version += 1;
+                }
+                Reply::Ready {
+                    generation,
+                    frame,
+                    before,
+                    after,
+                    builder,
+                } if generation == doc.generation => {
+                    self.shown = Some(Shown {
+                        generation,
+                        frame,
+                        before,
+                        after,
+                        builder,
+                    });
+                    self.partial = None;
+                    self.grid_version += 1;
+                }
+                Reply::Failed {
+                    generation,
+                    message,
+                } => {
+                    if generation == doc.generation && doc.built != generation {
+                        // New parameters could not be applied: keep the ones that work.
+                        doc.params = doc.builder.params().clone();
+                        doc.generation = doc.built;
+                        self.tuning.reset();
+                    }
+                    self.partial = None;
+                    self.resend_builder = true;
+                    self.notice = Some(Notice::Problem(message));
+                }
+                _ => {}
             }
-            Err(e) => self.problem(e.to_string()),
         }
     }
 
-    /// Loads a greyscale image as the reference.
-    pub fn load_reference_image(&mut self, r: &crate::export::ImageReference) {
-        match crate::export::load_image_reference(r, crate::grid::DEFAULT_CELL_BUDGET) {
-            Ok(g) => {
-                self.notice = Some(Notice::Info(format!("reference: {}", r.path.display())));
-                self.set_reference(r.path.display().to_string(), g)
-            }
-            Err(e) => self.problem(e.to_string()),
-        }
+    /// Blocks until the worker has delivered the current frame (tests and benchmarks only).
+    pub fn wait_for_worker(&mut self) {
+        let replies = self.worker.wait(Duration::from_secs(300));
+        self.take_replies(replies);
     }
 
-    /// Waits for every background answer in flight (tests and batch use only).
+    /// Waits for every background answer in flight: file tasks, the map, A, the cell history,
+    /// the change search and the sweep (tests and benchmarks only).
     pub fn wait_for_everything(&mut self) {
+        self.wait_for_tasks();
+        if self.take_pending_params() {
+            self.wait_for_tasks();
+        }
         self.wait_for_worker();
         if let Some(p) = &mut self.pinned
             && p.drain(true)
@@ -526,57 +359,21 @@ impl GridscopeApp {
         }
         self.cell_panel.wait();
         self.changes_panel.wait();
+        self.compare_panel.wait();
+        self.score_panel.wait();
         if let Some(doc) = &self.doc {
             let base = doc.params.clone();
             self.sweep_panel.wait(&base);
         }
     }
 
-    // ----- worker results --------------------------------------------------------------------
-
-    fn take_replies(&mut self, replies: Vec<Reply>) {
-        let Some(generation) = self.doc.as_ref().map(|d| d.generation) else {
-            return;
-        };
-        for r in replies {
-            match r {
-                Reply::Progress {
-                    generation: g,
-                    partial: Some(grid),
-                    ..
-                } if g == generation => {
-                    self.partial = Some(grid);
-                    self.grid_version += 1;
-                }
-                Reply::Progress { .. } => {}
-                Reply::Ready {
-                    generation: g,
-                    frame,
-                    before,
-                    after,
-                } if g == generation => {
-                    self.shown = Some(Shown {
-                        generation: g,
-                        frame,
-                        before,
-                        after,
-                    });
-                    self.partial = None;
-                    self.grid_version += 1;
-                }
-                Reply::Ready { .. } => {}
-            }
-        }
-    }
-
-    /// Blocks until the worker has delivered the current frame (tests and batch use only).
-    pub fn wait_for_worker(&mut self) {
-        let replies = self.worker.wait(Duration::from_secs(120));
-        self.take_replies(replies);
-    }
-
-    /// Whether a rebuild or seek is still running.
+    /// Whether a rebuild, a seek or a file task is still running.
     pub fn busy(&self) -> bool {
+        self.worker.busy() || !self.tasks.is_empty()
+    }
+
+    /// Whether the rebuild worker has a job in hand.
+    pub fn worker_busy(&self) -> bool {
         self.worker.busy()
     }
 
@@ -585,9 +382,16 @@ impl GridscopeApp {
         self.worker.progress
     }
 
-    /// The grid to display: the current frame's, or a partial one while rebuilding.
-    pub fn display_grid(&self) -> Option<&Grid> {
-        displayed(&self.partial, &self.shown)
+    /// Labels of the file tasks running.
+    pub fn task_labels(&self) -> Vec<&str> {
+        self.tasks.iter().map(|t| t.label.as_str()).collect()
+    }
+
+    /// The grid to display: the current frame's, or a coarse preview while rebuilding.
+    pub fn display_grid(&self) -> Option<&Arc<Grid>> {
+        self.partial
+            .as_ref()
+            .or(self.shown.as_ref().map(|s| &s.after))
     }
 
     /// The selected beam as a reference into the session, in the frame shown.
@@ -601,12 +405,11 @@ impl GridscopeApp {
     }
 
     /// The selected beam's footprint with before/after values, once the frame's grids are in.
+    /// One beam's cells and its frame's other beams on those cells only: cheap.
     pub fn footprint_records(&mut self) -> &[TouchRecord] {
-        let key = match (&self.doc, &self.shown, self.selection.beam) {
-            (Some(d), Some(s), Some((sensor, beam)))
-                if s.generation == d.generation && s.frame == self.frame =>
-            {
-                Some((d.generation, self.frame, sensor, beam))
+        let key = match (&self.shown, self.selection.beam) {
+            (Some(s), Some((sensor, beam))) if s.frame == self.frame => {
+                Some((s.generation, self.frame, sensor, beam))
             }
             _ => None,
         };
@@ -614,9 +417,8 @@ impl GridscopeApp {
             return &[];
         };
         if self.probe.as_ref().map(|p| p.0) != Some(key) {
-            let d = self.doc.as_ref().expect("key implies a document");
             let s = self.shown.as_ref().expect("key implies grids");
-            let records = d.builder.probe(
+            let records = s.builder.probe(
                 &s.before,
                 BeamRef {
                     frame: key.1,
@@ -629,132 +431,25 @@ impl GridscopeApp {
         &self.probe.as_ref().expect("just filled").1
     }
 
-    // ----- actions ---------------------------------------------------------------------------
-
-    /// Carries out one action.
-    pub fn apply(&mut self, action: Action) {
-        match action {
-            Action::Seek(f) => self.seek(f),
-            Action::SetParams(p) => {
-                self.set_params(p);
+    /// Applies parameters that waited for the first session; returns whether any were.
+    fn take_pending_params(&mut self) -> bool {
+        if self.doc.is_none() {
+            return false;
+        }
+        match self.pending_params.take() {
+            Some(PendingParams::Restored(p)) => self.set_params(*p),
+            Some(PendingParams::File(path)) => {
+                self.open_params(&path);
+                true
             }
-            Action::SelectBeam { sensor, beam } => {
-                self.selection.beam = Some((sensor, beam));
-                if self.settings.inspector_tab == InspectorTab::Cell {
-                    self.settings.inspector_tab = InspectorTab::Beam;
-                }
-            }
-            Action::ClearBeam => self.selection.beam = None,
-            Action::SelectCell(c) => {
-                self.selection.cell = Some(c);
-                self.settings.inspector_tab = InspectorTab::Cell;
-            }
-            Action::OpenSession(p) => self.open_session(&p),
-            Action::OpenDemo(n) => self.open_demo(n),
-            Action::OpenParams(p) => self.open_params(&p),
-            Action::SaveParams(p) => self.save_params(&p),
-            Action::ExportBundle { prefix, pgm } => self.export_bundle(&prefix, pgm),
-            Action::ExportView(p) => self.grid_view.request_export(p),
-            Action::OpenAny(p) => self.open_any(&p),
-            Action::JumpTo {
-                frame,
-                sensor,
-                beam,
-            } => {
-                self.seek(frame);
-                self.selection.beam = Some((sensor, beam));
-            }
-            Action::FocusCell(c) => {
-                self.selection.cell = Some(c);
-                if let Some(doc) = &self.doc {
-                    self.grid_view.centre = doc.builder.spec().centre(c);
-                }
-            }
-            Action::PinA => self.pin(),
-            Action::UnpinA => {
-                self.pinned = None;
-                self.layer = Layer::Current;
-                self.grid_version += 1;
-            }
-            Action::SetLayer(l) => {
-                self.layer = l;
-                self.grid_version += 1;
-            }
-            Action::LoadReference(p) => self.load_reference(&p),
-            Action::LoadReferenceImage(r) => self.load_reference_image(&r),
-            Action::UseDemoReference(n) => self.use_demo_reference(n),
-            Action::StartSweep => {
-                if let (Some(doc), Some(r)) = (&self.doc, &self.reference) {
-                    self.sweep_panel
-                        .start(doc, r.grid.clone(), self.frame, self.repaint.clone());
-                }
-            }
-            Action::FindChanges => {
-                if let Some(doc) = &self.doc {
-                    self.changes_panel.start(doc, self.repaint.clone());
-                }
-            }
-            Action::ShowTab(t) => self.settings.inspector_tab = t,
+            None => false,
         }
     }
 
-    /// Opens a file by what its name says it is.
-    pub fn open_any(&mut self, path: &Path) {
-        let name = path.to_string_lossy();
-        if name.ends_with(".params.ron") {
-            self.open_params(path);
-        } else {
-            self.open_session(path);
-        }
-    }
-
-    /// Saves the parameters applied now.
-    pub fn save_params(&mut self, path: &Path) {
-        let Some(doc) = &mut self.doc else { return };
-        let result = crate::io::atomic::write_all_atomically(&[(
-            path.to_path_buf(),
-            doc.params.to_ron_string().into_bytes(),
-        )]);
-        match result {
-            Ok(()) => {
-                doc.params_path = Some(path.to_path_buf());
-                settings::remember(&mut self.settings.recent_params, path);
-                self.notice = Some(Notice::Info(format!(
-                    "saved parameters to {}",
-                    path.display()
-                )));
-            }
-            Err(e) => self.problem(e.to_string()),
-        }
-    }
-
-    /// Writes the grid shown (after the current frame) as a map bundle with its provenance.
-    pub fn export_bundle(&mut self, prefix: &Path, pgm: bool) {
-        let (Some(doc), Some(shown)) = (&self.doc, &self.shown) else {
-            self.problem("nothing to export yet: the map is still being built".into());
-            return;
-        };
-        let provenance = Provenance {
-            params: doc.params.clone(),
-            session: doc.session.name.clone(),
-            frames: shown.frame + 1,
-        };
-        let prefix = crate::export::bundle_prefix(prefix);
-        match write_bundle(
-            &prefix,
-            &shown.after,
-            Some(&provenance),
-            ExportOptions { pgm },
-        ) {
-            Ok(files) => {
-                self.notice = Some(Notice::Info(format!(
-                    "exported {} files to {}.*",
-                    files.len(),
-                    prefix.display()
-                )))
-            }
-            Err(e) => self.problem(e.to_string()),
-        }
+    /// Applies a profile once the session being opened is there (a profile named on the
+    /// command line with a session).
+    pub fn open_params_after_open(&mut self, path: &std::path::Path) {
+        self.pending_params = Some(PendingParams::File(path.to_path_buf()));
     }
 
     // ----- the frame loop ----------------------------------------------------------------------
@@ -768,6 +463,8 @@ impl GridscopeApp {
         self.worker.set_repaint_context(&ctx);
         let replies = self.worker.drain();
         self.take_replies(replies);
+        self.take_tasks();
+        self.take_pending_params();
         if let Some(p) = &mut self.pinned
             && p.drain(false)
             && self.layer != Layer::Current
@@ -781,19 +478,29 @@ impl GridscopeApp {
             self.cell_panel
                 .ensure(doc, self.selection.cell, Some(ctx.clone()));
         }
+        self.window_title(&ctx);
 
         let mut actions: Vec<Action> = Vec::new();
+        actions.extend(self.shortcuts(&ctx));
+        self.close_request(&ctx);
         let dropped: Vec<PathBuf> = ctx.input(|i| {
             i.raw
                 .dropped_files
                 .iter()
                 .map(|f| f.path().to_path_buf())
+                .filter(|p| !p.as_os_str().is_empty())
                 .collect()
         });
         actions.extend(dropped.into_iter().map(Action::OpenAny));
 
         egui::Panel::top("menu_bar").show(ui, |ui| {
-            actions.extend(self.file_menu.ui(ui, &mut self.settings, self.doc.as_ref()));
+            actions.extend(self.file_menu.ui(
+                ui,
+                &mut self.settings,
+                self.doc.as_ref(),
+                &self.edits,
+                &mut self.grid_view.measure,
+            ));
         });
         egui::Panel::bottom("status_bar").show(ui, |ui| {
             status::status_ui(ui, self);
@@ -831,42 +538,153 @@ impl GridscopeApp {
                 });
         }
         egui::CentralPanel::default().show(ui, |ui| {
-            let current = displayed(&self.partial, &self.shown);
-            let pinned = self
-                .pinned
-                .as_ref()
-                .and_then(|p| p.shown.as_ref().map(|s| (&s.1, p.builder.bounds())));
-            let own = self
+            let view = view_data(
+                self.doc.as_ref(),
+                self.partial
+                    .as_ref()
+                    .or(self.shown.as_ref().map(|s| &s.after)),
+                self.pinned.as_ref(),
+                self.layer,
+                self.grid_version,
+                self.frame,
+                &self.settings,
+                &self.selection,
+                &records,
+            );
+            actions.extend(self.grid_view.ui(ui, view));
+        });
+        if let Some(d) = &mut self.dialog {
+            let last = self
                 .doc
                 .as_ref()
-                .map(|d| d.builder.bounds())
-                .unwrap_or(crate::fusion::CellBounds { lo: -1.0, hi: 1.0 });
-            let (grid, clamp, compare_with) = match (self.layer, pinned) {
-                (Layer::Pinned, Some((a, bounds))) => (Some(a), bounds, None),
-                (Layer::Difference, Some((a, _))) => (current, own, Some(a)),
-                _ => (current, own, None),
-            };
-            actions.extend(self.grid_view.ui(
-                ui,
-                grid_view::ViewData {
-                    doc: self.doc.as_ref(),
-                    grid,
-                    grid_version: self.grid_version,
-                    clamp,
-                    compare_with,
-                    layer: self.layer,
-                    frame: self.frame,
-                    settings: &self.settings,
-                    selection: &self.selection,
-                    footprint: &records,
-                },
-            ));
-        });
+                .map_or(0, |d| d.session.frames.len().saturating_sub(1));
+            match dialogs::dialog_ui(&ctx, d, last) {
+                Answer::Open => {}
+                Answer::Close => self.dialog = None,
+                Answer::Do(a) => {
+                    self.dialog = None;
+                    actions.push(*a);
+                }
+                Answer::SaveAndClose => {
+                    self.dialog = None;
+                    self.file_menu
+                        .open_prompt(menu::Purpose::SaveParams, self.doc.as_ref());
+                    self.file_menu.close_after_save = true;
+                }
+                Answer::CloseWindow => {
+                    self.dialog = None;
+                    self.allow_close = true;
+                    ctx.send_viewport_cmd(egui::ViewportCommand::Close);
+                }
+            }
+        }
         for a in actions {
             self.apply(a);
         }
-        if self.worker.busy() || self.pinned.as_ref().is_some_and(|p| p.busy()) {
+        if self.file_menu.close_after_save
+            && self.tasks.is_empty()
+            && self.doc.as_ref().is_some_and(|d| !d.unsaved())
+        {
+            self.allow_close = true;
+            ctx.send_viewport_cmd(egui::ViewportCommand::Close);
+        }
+        let waiting = self.worker.busy()
+            || !self.tasks.is_empty()
+            || self.pinned.as_ref().is_some_and(|p| p.busy());
+        if waiting {
             ctx.request_repaint_after(Duration::from_millis(100));
+        }
+    }
+
+    /// Keyboard shortcuts of the menus (when no text field has the keyboard).
+    fn shortcuts(&mut self, ctx: &egui::Context) -> Vec<Action> {
+        use egui::{Key, KeyboardShortcut, Modifiers};
+        let mut out = Vec::new();
+        if ctx.egui_wants_keyboard_input() {
+            return out;
+        }
+        let cmd = Modifiers::COMMAND;
+        let cmd_shift = Modifiers::COMMAND | Modifiers::SHIFT;
+        let pressed = |m: Modifiers, k: Key| {
+            ctx.input_mut(|i| i.consume_shortcut(&KeyboardShortcut::new(m, k)))
+        };
+        let doc = self.doc.as_ref();
+        if pressed(cmd_shift, Key::Z) || pressed(cmd, Key::Y) {
+            out.push(Action::Redo);
+        }
+        if pressed(cmd, Key::Z) {
+            out.push(Action::Undo);
+        }
+        if pressed(cmd_shift, Key::E) {
+            self.file_menu.open_prompt(menu::Purpose::ExportView, doc);
+        }
+        if pressed(cmd, Key::E) {
+            self.file_menu.open_prompt(menu::Purpose::ExportBundle, doc);
+        }
+        if pressed(cmd, Key::O) {
+            self.file_menu.open_prompt(menu::Purpose::Open, doc);
+        }
+        if pressed(cmd, Key::S) && doc.is_some() {
+            self.file_menu.open_prompt(menu::Purpose::SaveParams, doc);
+        }
+        if pressed(cmd, Key::G) {
+            out.push(Action::Ask(Dialog::GoToFrame {
+                text: self.frame.to_string(),
+            }));
+        }
+        if pressed(cmd, Key::L) {
+            let c = self.grid_view.centre;
+            out.push(Action::Ask(Dialog::GoToPoint { x: c.x, y: c.y }));
+        }
+        if pressed(Modifiers::NONE, Key::F1) {
+            out.push(Action::Ask(Dialog::Shortcuts));
+        }
+        if pressed(Modifiers::NONE, Key::F) {
+            self.grid_view.request_fit();
+        }
+        if pressed(Modifiers::NONE, Key::Plus) || pressed(Modifiers::NONE, Key::Equals) {
+            self.grid_view.zoom_by(1.25);
+        }
+        if pressed(Modifiers::NONE, Key::Minus) {
+            self.grid_view.zoom_by(0.8);
+        }
+        if pressed(Modifiers::NONE, Key::M) {
+            self.grid_view.measure.start();
+        }
+        if pressed(Modifiers::NONE, Key::Escape) {
+            self.grid_view.measure.stop();
+        }
+        out
+    }
+
+    /// Asks before the window closes with unsaved parameters.
+    fn close_request(&mut self, ctx: &egui::Context) {
+        if ctx.input(|i| i.viewport().close_requested())
+            && !self.allow_close
+            && self.doc.as_ref().is_some_and(|d| d.unsaved())
+        {
+            ctx.send_viewport_cmd(egui::ViewportCommand::CancelClose);
+            self.dialog = Some(Dialog::CloseUnsaved);
+        }
+    }
+
+    /// The window's title: the session, and a mark while parameters are unsaved.
+    fn window_title(&mut self, ctx: &egui::Context) {
+        let title = match &self.doc {
+            Some(d) => format!(
+                "gridscope - {}{}",
+                d.session.name,
+                if d.unsaved() {
+                    " (parameters not saved)"
+                } else {
+                    ""
+                }
+            ),
+            None => "gridscope".to_string(),
+        };
+        if title != self.title {
+            ctx.send_viewport_cmd(egui::ViewportCommand::Title(title.clone()));
+            self.title = title;
         }
     }
 
@@ -890,6 +708,7 @@ impl GridscopeApp {
             InspectorTab::Beam => actions.extend(self.beam_panel.ui(
                 ui,
                 doc,
+                self.shown.as_ref(),
                 self.frame,
                 self.selection.beam,
                 records,
@@ -905,14 +724,14 @@ impl GridscopeApp {
                 current,
             )),
             InspectorTab::Score => {
-                let mut maps: Vec<(char, &Grid, u64)> = Vec::new();
+                let mut maps: Vec<(char, Arc<Grid>, u64)> = Vec::new();
                 if let Some((g, v)) = current {
-                    maps.push(('B', g, v));
+                    maps.push(('B', g.clone(), v));
                 }
                 if let Some(p) = &self.pinned
                     && let Some((_, g)) = &p.shown
                 {
-                    maps.push(('A', g, p.version + (1 << 40)));
+                    maps.push(('A', g.clone(), p.version + (1 << 40)));
                 }
                 actions.extend(self.score_panel.ui(ui, doc, self.reference.as_ref(), &maps));
             }
@@ -926,6 +745,51 @@ impl GridscopeApp {
             InspectorTab::Changes => actions.extend(self.changes_panel.ui(ui, doc, self.frame)),
         }
         actions
+    }
+
+    /// What to remember about this run for the next start.
+    pub fn last_session(&self) -> Option<LastSession> {
+        let doc = self.doc.as_ref()?;
+        Some(LastSession {
+            session: doc.source.label(),
+            params: doc.params.clone(),
+            frame: self.frame,
+            view: Some((self.grid_view.centre, self.grid_view.scale)),
+        })
+    }
+}
+
+/// What the map view draws this frame.
+#[allow(clippy::too_many_arguments)]
+fn view_data<'a>(
+    doc: Option<&'a Document>,
+    current: Option<&'a Arc<Grid>>,
+    pinned: Option<&'a Pinned>,
+    layer: Layer,
+    grid_version: u64,
+    frame: usize,
+    settings: &'a Settings,
+    selection: &'a Selection,
+    footprint: &'a [TouchRecord],
+) -> grid_view::ViewData<'a> {
+    let own = doc.map(|d| d.builder.bounds());
+    let pinned = pinned.and_then(|p| p.shown.as_ref().map(|s| (&s.1, p.builder.bounds())));
+    let (grid, clamp, compare_with) = match (layer, pinned) {
+        (Layer::Pinned, Some((a, bounds))) => (Some(a), Some(bounds), None),
+        (Layer::Difference, Some((a, _))) => (current, own, Some(a)),
+        _ => (current, own, None),
+    };
+    grid_view::ViewData {
+        doc,
+        grid,
+        grid_version,
+        clamp: clamp.unwrap_or(crate::CellBounds { lo: -1.0, hi: 1.0 }),
+        compare_with,
+        layer,
+        frame,
+        settings,
+        selection,
+        footprint,
     }
 }
 
@@ -941,6 +805,9 @@ impl eframe::App for EframeApp {
     }
 
     fn save(&mut self, storage: &mut dyn eframe::Storage) {
+        if let Some(last) = self.app.last_session() {
+            self.app.settings.last = Some(last);
+        }
         eframe::set_value(storage, settings::SETTINGS_KEY, &self.app.settings);
     }
 }
@@ -948,7 +815,7 @@ impl eframe::App for EframeApp {
 /// What the window opens on.
 #[derive(Clone, Debug, Default)]
 pub struct Launch {
-    /// A session (or plan) file; the first demo when `None`.
+    /// A session (or plan) file; what was open last (or the first demo) when `None`.
     pub session: Option<PathBuf>,
     /// A parameter profile to apply.
     pub params: Option<PathBuf>,
@@ -977,18 +844,12 @@ pub fn run(launch: Launch) -> Result<(), String> {
                 Some(path) => {
                     let mut app = GridscopeApp::new(settings);
                     app.open_session(path);
-                    if app.doc.is_none() {
-                        // Say why, on top of the demo, instead of an empty window.
-                        let notice = app.notice.take();
-                        app.open_demo(demo::DEMOS[0].name);
-                        app.notice = notice;
-                    }
                     app
                 }
-                None => GridscopeApp::with_demo(settings),
+                None => GridscopeApp::restoring(settings),
             };
             if let Some(p) = &launch.params {
-                app.open_params(p);
+                app.open_params_after_open(p);
             }
             Ok(Box::new(EframeApp { app }))
         }),

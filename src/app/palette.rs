@@ -9,7 +9,7 @@ use egui::Color32;
 use serde::{Deserialize, Serialize};
 
 /// How cell values are coloured.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash, Serialize, Deserialize)]
 pub enum Palette {
     /// Sand (free) - slate (unknown) - ink (occupied), scaled to the clamp bounds.
     #[default]

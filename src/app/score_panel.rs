@@ -6,11 +6,13 @@
 
 use super::jobs::Job;
 use super::{Action, Document};
+use crate::align::{Fit, fit_rigid};
 use crate::export::{DEFAULT_MARGIN, ImageClasses, ImageReference, classify_image};
 use crate::geometry::Point2;
+use crate::geometry::Pose2;
 use crate::grid::DEFAULT_CELL_BUDGET;
 use crate::grid::Grid;
-use crate::score::{CompareError, Score, score};
+use crate::score::{Score, score_moved};
 use egui::{Color32, RichText};
 use std::path::PathBuf;
 use std::sync::Arc;
@@ -25,17 +27,23 @@ pub struct Reference {
     pub version: u64,
 }
 
-/// (map version, reference version, map name) a cached score belongs to.
-type ScoreKey = (u64, u64, char);
+/// (map version, reference version, map name, fitted to another frame) a score belongs to.
+type ScoreKey = (u64, u64, char, bool);
+
+/// A score, with the rigid transform it was scored under when one was fitted.
+type Scored = Result<(Score, Option<Fit>), String>;
 
 /// One row of the score table: name, tooltip, how to show it.
 type MetricRow = (&'static str, &'static str, fn(&Score) -> String);
 
-/// Score panel state: the two load forms and cached scores.
+/// Score panel state: the two load forms, the scores and the jobs computing them.
 pub struct ScorePanel {
     bundle_path: String,
     image: ImageForm,
-    cached: Vec<(ScoreKey, Result<Score, CompareError>)>,
+    /// Fit a rigid transform between the map and the reference before scoring.
+    pub align: bool,
+    cached: Vec<(ScoreKey, Scored)>,
+    jobs: Vec<(ScoreKey, Job<Scored>)>,
 }
 
 struct ImageForm {
@@ -79,7 +87,9 @@ impl Default for ScorePanel {
                 preview: None,
                 preview_job: None,
             },
+            align: false,
             cached: Vec::new(),
+            jobs: Vec::new(),
         }
     }
 }
@@ -94,19 +104,64 @@ fn metric(v: f64) -> String {
 }
 
 impl ScorePanel {
+    /// Puts an image's path into the image form (a dropped image), to be previewed.
+    pub fn set_image_path(&mut self, path: &std::path::Path) {
+        self.image.path = path.display().to_string();
+        self.image.preview = None;
+    }
+
+    /// The score of `map` under `key`: known, being computed (started if not), or `None`.
     fn score_of(
         &mut self,
+        ctx: &egui::Context,
         key: ScoreKey,
-        map: &Grid,
-        reference: &Grid,
-    ) -> Result<Score, CompareError> {
+        map: &Arc<Grid>,
+        reference: &Arc<Grid>,
+    ) -> Option<Scored> {
         if let Some((_, s)) = self.cached.iter().find(|(k, _)| *k == key) {
-            return s.clone();
+            return Some(s.clone());
         }
-        let s = score(map, reference);
-        self.cached.retain(|(k, _)| k.2 != key.2);
-        self.cached.push((key, s.clone()));
-        s
+        if let Some(i) = self.jobs.iter().position(|(k, _)| *k == key) {
+            let done = self.jobs[i].1.poll()?;
+            self.jobs.remove(i);
+            let s = done.unwrap_or_else(|f| Err(format!("the score {f}")));
+            self.cached.retain(|(k, _)| k.2 != key.2);
+            self.cached.push((key, s.clone()));
+            return Some(s);
+        }
+        self.jobs.retain(|(k, _)| k.2 != key.2);
+        let (map, reference) = (map.clone(), reference.clone());
+        let job = Job::spawn(Some(ctx.clone()), 1, move |_, _| {
+            let fit = if key.3 {
+                Some(fit_rigid(&map, &reference).ok_or("a map has no occupied cell to align by")?)
+            } else {
+                None
+            };
+            let pose = fit.map_or(Pose2::default(), |f| f.pose);
+            score_moved(&map, &reference, &pose)
+                .map(|s| (s, fit))
+                .map_err(|e| e.to_string())
+        });
+        self.jobs.push((key, job));
+        None
+    }
+
+    /// Waits for the scores being computed (tests only).
+    pub fn wait(&mut self) {
+        for (key, job) in std::mem::take(&mut self.jobs) {
+            let s = job.wait().unwrap_or_else(|f| Err(format!("the score {f}")));
+            self.cached.retain(|(k, _)| k.2 != key.2);
+            self.cached.push((key, s));
+        }
+    }
+
+    /// The score of the map named `name` against the current reference, once computed.
+    pub fn score(&self, name: char) -> Option<&Scored> {
+        self.cached
+            .iter()
+            .rev()
+            .find(|(k, _)| k.2 == name)
+            .map(|(_, s)| s)
     }
 
     /// Draws the panel. `maps` are the current map (`'B'`) and the pinned one (`'A'`) with
@@ -116,7 +171,7 @@ impl ScorePanel {
         ui: &mut egui::Ui,
         doc: &Document,
         reference: Option<&Reference>,
-        maps: &[(char, &Grid, u64)],
+        maps: &[(char, Arc<Grid>, u64)],
     ) -> Vec<Action> {
         let mut actions = Vec::new();
         ui.heading("Score against a reference");
@@ -207,6 +262,7 @@ impl ScorePanel {
             if let Some((s, job)) = &f.preview_job
                 && let Some(result) = job.poll()
             {
+                let result = result.unwrap_or_else(|failure| Err(format!("the preview {failure}")));
                 f.preview = Some((s.clone(), result));
                 f.preview_job = None;
             }
@@ -255,15 +311,40 @@ impl ScorePanel {
             "reference: {} ({} x {} cells at {} m)",
             reference.label, rs.width, rs.height, rs.resolution
         ));
-        let results: Vec<(char, Result<Score, CompareError>)> = maps
-            .iter()
-            .map(|(name, grid, version)| {
-                (
-                    *name,
-                    self.score_of((*version, reference.version, *name), grid, &reference.grid),
-                )
-            })
-            .collect();
+        ui.checkbox(&mut self.align, "the map was drawn in another frame: fit a rigid transform first")
+            .on_hover_text("Find the rotation and shift that best lay the map's occupied cells onto the reference's, then score on the aligned overlap");
+        let ctx = ui.ctx().clone();
+        let mut results: Vec<(char, Result<Score, String>)> = Vec::new();
+        let mut pending = false;
+        for (name, grid, version) in maps {
+            let key = (*version, reference.version, *name, self.align);
+            match self.score_of(&ctx, key, grid, &reference.grid) {
+                None => pending = true,
+                Some(Ok((s, fit))) => {
+                    if let Some(f) = fit {
+                        ui.label(format!(
+                            "map {name} fitted onto the reference: x {:+.3} m, y {:+.3} m, heading {:+.2} deg (fit {:.3})",
+                            f.pose.x,
+                            f.pose.y,
+                            f.pose.theta.to_degrees(),
+                            f.score
+                        ));
+                    }
+                    results.push((*name, Ok(s)));
+                }
+                Some(Err(e)) => results.push((*name, Err(e))),
+            }
+        }
+        if pending {
+            ui.horizontal(|ui| {
+                ui.spinner();
+                ui.label(if self.align {
+                    "fitting and scoring..."
+                } else {
+                    "scoring..."
+                });
+            });
+        }
         egui::Grid::new("scores")
             .striped(true)
             .num_columns(results.len() + 1)

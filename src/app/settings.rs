@@ -55,6 +55,19 @@ impl InspectorTab {
     }
 }
 
+/// What was open when the window last closed, to open again at the next start.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct LastSession {
+    /// The session's path, or `demo:NAME`.
+    pub session: String,
+    /// The parameters applied.
+    pub params: crate::Params,
+    /// The frame shown.
+    pub frame: usize,
+    /// The view: centre (world metres) and scale (points per metre).
+    pub view: Option<(crate::Point2, f32)>,
+}
+
 /// User choices kept between runs.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(default)]
@@ -77,6 +90,8 @@ pub struct Settings {
     pub show_inspector: bool,
     /// The inspector tab shown.
     pub inspector_tab: InspectorTab,
+    /// What was open at the last close (restored unless a file is given at start).
+    pub last: Option<LastSession>,
 }
 
 impl Default for Settings {
@@ -91,6 +106,7 @@ impl Default for Settings {
             show_tuning: true,
             show_inspector: true,
             inspector_tab: InspectorTab::Beam,
+            last: None,
         }
     }
 }

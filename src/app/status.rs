@@ -46,7 +46,12 @@ pub fn status_ui(ui: &mut egui::Ui, app: &GridscopeApp) {
                     s.width, s.height, s.resolution
                 ));
                 ui.separator();
-                if app.busy() {
+                if doc.unsaved() {
+                    ui.label(RichText::new("parameters not saved").color(Color32::from_rgb(240, 200, 90)))
+                        .on_hover_text("The parameters differ from the ones last opened or saved (File > Save parameters)");
+                    ui.separator();
+                }
+                if app.progress().is_some() || app.worker_busy() {
                     let (done, total) = app.progress().unwrap_or((0, 1));
                     let fraction = if total > 0 {
                         done as f32 / total as f32
@@ -67,6 +72,11 @@ pub fn status_ui(ui: &mut egui::Ui, app: &GridscopeApp) {
             None => {
                 ui.label("no session loaded");
             }
+        }
+        for label in app.task_labels() {
+            ui.separator();
+            ui.spinner();
+            ui.label(label);
         }
         ui.separator();
         match &app.notice {

@@ -93,11 +93,25 @@ fn axis_ui(ui: &mut egui::Ui, key: &str, axis: &mut Axis, names: &[String]) {
 impl SweepPanel {
     /// Waits for a running sweep (tests only).
     pub fn wait(&mut self, base: &crate::params::Params) {
-        if let Some(job) = self.job.take()
-            && let Some(r) = job.wait()
-        {
-            self.result = Some((r, base.clone()));
+        if let Some(job) = self.job.take() {
+            self.take(job.wait(), base);
         }
+    }
+
+    fn take(
+        &mut self,
+        r: Result<SweepResult, super::jobs::JobFailure>,
+        base: &crate::params::Params,
+    ) {
+        match r {
+            Ok(r) => self.result = Some((r, base.clone())),
+            Err(f) => self.problem = Some(format!("the sweep {f}")),
+        }
+    }
+
+    /// Whether a finished sweep's results are shown.
+    pub fn has_result(&self) -> bool {
+        self.result.is_some()
     }
 
     /// Whether a sweep runs.
@@ -165,8 +179,8 @@ impl SweepPanel {
         if let Some(job) = &self.job
             && let Some(r) = job.poll()
         {
-            self.result = Some((r, base.clone()));
             self.job = None;
+            self.take(r, base);
         }
         ui.heading("Sweep");
         ui.label("Rebuild the session for a range of one or two parameters and score every map against the reference.");
@@ -338,7 +352,7 @@ impl SweepPanel {
         let lo = finite.iter().copied().fold(f64::INFINITY, f64::min);
         let hi = finite.iter().copied().fold(f64::NEG_INFINITY, f64::max);
         ui.label(format!(
-            "{label}: rows {} (down), columns {} (across); darker is lower",
+            "{label}: rows {} (down), columns {} (across)",
             r.vary[0].name, r.vary[1].name
         ));
         let cell = vec2(
@@ -360,14 +374,12 @@ impl SweepPanel {
             );
             for j in 0..ny {
                 let v = values[i * ny + j];
-                let t = if hi > lo {
-                    ((v - lo) / (hi - lo)) as f32
-                } else {
-                    0.5
-                };
                 let colour = if v.is_finite() {
-                    let g = (40.0 + 200.0 * t) as u8;
-                    Color32::from_rgb(g, g, (g as f32 * 0.8 + 40.0) as u8)
+                    heat_colour(if hi > lo {
+                        ((v - lo) / (hi - lo)) as f32
+                    } else {
+                        0.5
+                    })
                 } else {
                     Color32::from_rgb(90, 30, 30)
                 };
@@ -384,6 +396,7 @@ impl SweepPanel {
                 }
             }
         }
+        colour_bar_ui(ui, lo, hi, label);
         if let Some(p) = response.hover_pos() {
             let j = ((p.x - rect.min.x - 60.0) / cell.x).floor();
             let i = ((p.y - rect.min.y) / cell.y).floor();
@@ -397,4 +410,33 @@ impl SweepPanel {
             }
         }
     }
+}
+
+/// Colour of a heat-map cell at `t` in 0..=1 of the value range (low dark, high light).
+pub fn heat_colour(t: f32) -> Color32 {
+    let g = (40.0 + 200.0 * t.clamp(0.0, 1.0)) as u8;
+    Color32::from_rgb(g, g, (g as f32 * 0.8 + 40.0) as u8)
+}
+
+/// The heat map's colour bar: the colours from the lowest value to the highest, labelled.
+fn colour_bar_ui(ui: &mut egui::Ui, lo: f64, hi: f64, label: &str) {
+    if !(lo.is_finite() && hi.is_finite()) {
+        return;
+    }
+    ui.horizontal(|ui| {
+        ui.monospace(format!("{lo:.4}"));
+        let (rect, _) = ui.allocate_exact_size(vec2(160.0, 12.0), Sense::hover());
+        let n = 40;
+        for k in 0..n {
+            let x0 = rect.min.x + rect.width() * k as f32 / n as f32;
+            let r = egui::Rect::from_min_size(
+                egui::pos2(x0, rect.min.y),
+                vec2(rect.width() / n as f32 + 0.5, rect.height()),
+            );
+            ui.painter()
+                .rect_filled(r, 0.0, heat_colour(k as f32 / (n - 1) as f32));
+        }
+        ui.monospace(format!("{hi:.4}"));
+        ui.label(format!("{label} (colour bar)"));
+    });
 }

@@ -27,6 +27,60 @@ pub struct TuningPanel {
     frame_range: Option<(usize, usize)>,
 }
 
+/// The y range of a plot of increments against distance, and which clamp bounds to draw.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct PlotBounds {
+    /// Lowest y shown, log-odds.
+    pub y_min: f64,
+    /// Highest y shown, log-odds.
+    pub y_max: f64,
+    /// Whether the lower clamp bound lies close enough to draw.
+    pub show_lo: bool,
+    /// Whether the upper clamp bound lies close enough to draw.
+    pub show_hi: bool,
+}
+
+impl PlotBounds {
+    /// A note naming the clamp bounds left off the plot, if any.
+    pub fn note(&self, lo: f64, hi: f64) -> Option<String> {
+        match (self.show_lo, self.show_hi) {
+            (true, true) => None,
+            (false, true) => Some(format!("clamp min {lo:+.2} lies far below the plot")),
+            (true, false) => Some(format!("clamp max {hi:+.2} lies far above the plot")),
+            (false, false) => Some(format!(
+                "clamp bounds {lo:+.2} and {hi:+.2} lie far outside the plot"
+            )),
+        }
+    }
+}
+
+/// The y range for plotting `values` (increments, log-odds) with the clamp bounds `lo < 0 <
+/// hi`: the values' own range (and 0), widened to a bound only when that bound lies within two
+/// of those ranges; a bound further away is left off, so that a clamp of 50 does not flatten
+/// increments of about 1 into a line.
+pub fn model_plot_bounds(values: &[f64], lo: f64, hi: f64) -> PlotBounds {
+    let (mut a, mut b) = values
+        .iter()
+        .filter(|v| v.is_finite())
+        .fold((0.0f64, 0.0f64), |(a, b), &v| (a.min(v), b.max(v)));
+    let span = (b - a).max(0.5);
+    let show_lo = lo >= a - 2.0 * span;
+    let show_hi = hi <= b + 2.0 * span;
+    if show_lo {
+        a = a.min(lo);
+    }
+    if show_hi {
+        b = b.max(hi);
+    }
+    let pad = 0.05 * (b - a);
+    PlotBounds {
+        y_min: a - pad,
+        y_max: b + pad,
+        show_lo,
+        show_hi,
+    }
+}
+
 /// A probability of log-odds `l` in a form that never shows exactly 0 or 1.
 pub fn show_probability(l: f64) -> String {
     let p = probability(l);
@@ -343,14 +397,15 @@ impl TuningPanel {
             .strong(),
         );
         // The plot's identity includes the reading so that its axes follow a newly chosen beam.
+        let values: Vec<f64> = pts.iter().map(|p| p[1]).collect();
+        let bounds = model_plot_bounds(&values, params.clamp.min, params.clamp.max);
         Plot::new(("model plot", self.focus, (z * 1000.0).round() as i64))
             .default_x_bounds(0.0, far)
+            .default_y_bounds(bounds.y_min, bounds.y_max)
             .height(200.0)
             .legend(Legend::default())
             .custom_x_axes(super::plot_x_axis("distance from the sensor (m)"))
             .y_axis_label("increment (log-odds)")
-            .include_y(params.clamp.min)
-            .include_y(params.clamp.max)
             .allow_scroll(false)
             .show(ui, |p| {
                 p.line(Line::new("increment", PlotPoints::from(pts)));
@@ -377,15 +432,22 @@ impl TuningPanel {
                 }
                 p.vline(VLine::new("reading", z));
                 p.vline(VLine::new("reach", reach).color(Color32::GRAY));
-                p.hline(
-                    HLine::new("clamp max", params.clamp.max)
-                        .color(Color32::from_rgb(120, 140, 255)),
-                );
-                p.hline(
-                    HLine::new("clamp min", params.clamp.min)
-                        .color(Color32::from_rgb(240, 200, 90)),
-                );
+                if bounds.show_hi {
+                    p.hline(
+                        HLine::new("clamp max", params.clamp.max)
+                            .color(Color32::from_rgb(120, 140, 255)),
+                    );
+                }
+                if bounds.show_lo {
+                    p.hline(
+                        HLine::new("clamp min", params.clamp.min)
+                            .color(Color32::from_rgb(240, 200, 90)),
+                    );
+                }
             });
+        if let Some(note) = bounds.note(params.clamp.min, params.clamp.max) {
+            ui.label(note);
+        }
         let l_free = logit(spec.p_free());
         let l_occ = logit(spec.p_occ());
         let clamp = params.clamp;
@@ -400,5 +462,25 @@ impl TuningPanel {
             clamp.min,
             say(CellBounds::from(clamp).readings_to_flip(l_occ as f32))
         ));
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn a_far_clamp_does_not_flatten_the_model_plot() {
+        // The door-cycle profile: increments between logit(0.42) = -0.32 and logit(0.85) =
+        // 1.73, clamp (-2.6, 50). The plot spans the increments (and the near lower bound),
+        // not 50: the upper bound is left off and named.
+        let values = [-0.3228, 0.0, 1.7346, 0.4];
+        let b = model_plot_bounds(&values, -2.6, 50.0);
+        assert!(b.show_lo && !b.show_hi);
+        assert!(b.y_max < 2.0 && b.y_min < -2.6, "{b:?}");
+        assert!(b.note(-2.6, 50.0).unwrap().contains("clamp max +50.00"));
+        // A near clamp is drawn and included.
+        let b = model_plot_bounds(&values, -2.08, 2.79);
+        assert!(b.show_lo && b.show_hi && b.y_max > 2.79 && b.note(-2.08, 2.79).is_none());
     }
 }

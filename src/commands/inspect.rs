@@ -135,13 +135,7 @@ pub fn history(args: &HistoryArgs, out: &mut dyn Write) -> Result<(), Error> {
         .into());
     }
     let until = args.until.unwrap_or(session.frames.len());
-    let _ = writeln!(out, "frame,t,sensor,beam,increment,value");
-    for u in builder.cell_history(cell, until) {
-        let _ = writeln!(
-            out,
-            "{},{},{},{},{:?},{:?}",
-            u.frame, u.t, session.sensors[u.sensor].id, u.beam, u.increment, u.value
-        );
-    }
+    let updates = builder.cell_history(cell, until);
+    let _ = out.write_all(crate::fusion::history_csv(&session, &updates).as_bytes());
     Ok(())
 }

@@ -10,7 +10,7 @@ use super::MapBuilder;
 use crate::grid::{CellIndex, Grid};
 use crate::params::FusionRule;
 use crate::rule::Strongest;
-use crate::session::BeamRef;
+use crate::session::{BeamRef, Session};
 use std::collections::HashMap;
 
 /// One cell touched by one beam.
@@ -58,6 +58,22 @@ pub struct CellUpdate {
     pub value: f32,
     /// Whether the clamp cut the update short.
     pub clamped: bool,
+}
+
+/// A cell's history as CSV with the header `frame,t,sensor,beam,increment,value`: one row per
+/// update in the order applied, `increment` before clamping and `value` after, log-odds in the
+/// shortest text that reads back to the same f32.
+pub fn history_csv(session: &Session, updates: &[CellUpdate]) -> String {
+    use std::fmt::Write;
+    let mut out = String::from("frame,t,sensor,beam,increment,value\n");
+    for u in updates {
+        let _ = writeln!(
+            out,
+            "{},{},{},{},{:?},{:?}",
+            u.frame, u.t, session.sensors[u.sensor].id, u.beam, u.increment, u.value
+        );
+    }
+    out
 }
 
 impl MapBuilder {

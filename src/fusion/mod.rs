@@ -20,7 +20,7 @@ mod plain;
 mod setup;
 
 pub use crate::rule::CellBounds;
-pub use inspect::{CellUpdate, Touch, TouchRecord};
+pub use inspect::{CellUpdate, Touch, TouchRecord, history_csv};
 
 use crate::error::{Error, InputError};
 use crate::grid::{DEFAULT_CELL_BUDGET, Grid, GridSpec};

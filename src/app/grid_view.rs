@@ -7,15 +7,16 @@
 //! pixel per cell; a UI frame only uploads finished pictures (nearest-neighbour, so cells stay
 //! crisp). Grids of up to [`SMALL_GRID`] cells are drawn at once, in the frame.
 
+pub use super::measure::Measure;
 use super::overlay::{legend, overlay_text, save_view, scale_bar, sector_outline};
 use super::palette::increment_colour;
-use super::render::{MAX_SIDE, Rendered, Renderer, Request, Window, render};
+use super::pictures::Picture;
+use super::render::{Renderer, Window};
 use super::{Action, Document, Notice, Selection, Settings};
 use crate::fusion::TouchRecord;
 use crate::geometry::Point2;
-use crate::grid::WorldBox;
 use crate::{CellIndex, Grid, Reading, SensorKind, probability};
-use egui::{Color32, Pos2, Rect, Sense, Shape, Stroke, TextureHandle, TextureOptions, pos2, vec2};
+use egui::{Color32, Pos2, Rect, Sense, Shape, Stroke, pos2, vec2};
 use std::path::PathBuf;
 use std::sync::{Arc, Mutex};
 
@@ -105,59 +106,14 @@ pub struct Hover {
     pub value: Option<f32>,
 }
 
-/// Measuring a distance on the map: when active, two clicks set the ends.
-#[derive(Clone, Debug, Default, PartialEq)]
-pub struct Measure {
-    /// Whether clicks on the map set measuring points (instead of selecting).
-    pub active: bool,
-    /// The points clicked, world metres (at most two).
-    pub points: Vec<Point2>,
-}
-
-impl Measure {
-    /// Starts a new measurement.
-    pub fn start(&mut self) {
-        self.active = true;
-        self.points.clear();
-    }
-
-    /// Ends measuring (the last line stays drawn until the next one starts).
-    pub fn stop(&mut self) {
-        self.active = false;
-    }
-
-    /// Takes a clicked point: the first end, the second, or a fresh first end after two.
-    pub fn click(&mut self, p: Point2) {
-        if self.points.len() >= 2 {
-            self.points.clear();
-        }
-        self.points.push(p);
-    }
-
-    /// Length (metres) and heading (radians, CCW from east) of the measured line.
-    pub fn result(&self) -> Option<(f64, f64)> {
-        let [a, b] = self.points[..] else {
-            return None;
-        };
-        Some((a.distance(b), (b.y - a.y).atan2(b.x - a.x)))
-    }
-}
-
-/// One picture of the grid on a texture, and what it is of.
-struct Picture {
-    texture: TextureHandle,
-    world: WorldBox,
-    key: u64,
-}
-
 /// State of the grid view.
 pub struct GridView {
-    overview: Option<Picture>,
-    detail: Option<(Picture, Window)>,
-    overview_renderer: Renderer,
-    detail_renderer: Renderer,
+    pub(super) overview: Option<Picture>,
+    pub(super) detail: Option<(Picture, Window)>,
+    pub(super) overview_renderer: Renderer,
+    pub(super) detail_renderer: Renderer,
     /// Keys of the pictures asked for and not yet arrived.
-    asked: (Option<u64>, Option<(u64, Window)>),
+    pub(super) asked: (Option<u64>, Option<(u64, Window)>),
     /// World point at the view centre, metres.
     pub centre: Point2,
     /// Screen points per metre.
@@ -202,23 +158,6 @@ fn distance_to_segment(p: Pos2, a: Pos2, b: Pos2) -> f32 {
         0.0
     };
     (a + ab * t - p).length()
-}
-
-/// A number standing for everything a picture depends on.
-fn picture_key(data: &ViewData<'_>, grid: &Arc<Grid>) -> u64 {
-    use std::hash::{Hash, Hasher};
-    let mut h = std::collections::hash_map::DefaultHasher::new();
-    (
-        data.grid_version,
-        data.settings.palette,
-        data.clamp.lo.to_bits(),
-        data.clamp.hi.to_bits(),
-        data.layer,
-        Arc::as_ptr(grid) as usize,
-        data.compare_with.map(|a| Arc::as_ptr(a) as usize),
-    )
-        .hash(&mut h);
-    h.finish()
 }
 
 impl GridView {
@@ -295,121 +234,6 @@ impl GridView {
             }
         }
         out
-    }
-
-    /// Uploads a finished picture.
-    fn upload(ctx: &egui::Context, slot: &mut Option<Picture>, r: Rendered, name: &str) {
-        match slot {
-            Some(p) => {
-                p.texture.set(r.image, TextureOptions::NEAREST);
-                p.world = r.world;
-                p.key = r.key;
-            }
-            None => {
-                *slot = Some(Picture {
-                    texture: ctx.load_texture(name, r.image, TextureOptions::NEAREST),
-                    world: r.world,
-                    key: r.key,
-                })
-            }
-        }
-    }
-
-    /// Keeps the pictures of the grid up to date: asks for what changed, takes what arrived.
-    fn pictures(
-        &mut self,
-        ctx: &egui::Context,
-        data: &ViewData<'_>,
-        grid: &Arc<Grid>,
-        t: &ViewTransform,
-    ) {
-        let key = picture_key(data, grid);
-        let request = |window| Request {
-            key,
-            grid: grid.clone(),
-            compare: data.compare_with.cloned(),
-            palette: data.settings.palette,
-            bounds: data.clamp,
-            window,
-        };
-        if let Some(r) = self.overview_renderer.take() {
-            if self.asked.0 == Some(r.key) {
-                self.asked.0 = None;
-            }
-            Self::upload(ctx, &mut self.overview, r, "grid overview");
-        }
-        let current = self.overview.as_ref().map(|p| p.key);
-        if current != Some(key) && self.asked.0 != Some(key) {
-            if grid.spec().cells() <= SMALL_GRID {
-                let r = render(&request(None));
-                Self::upload(ctx, &mut self.overview, r, "grid overview");
-            } else {
-                self.overview_renderer.request(request(None));
-                self.asked.0 = Some(key);
-            }
-        }
-        // Close up on a large grid: the cells in view at one pixel each, once they fit.
-        let spec = grid.spec();
-        let large = spec.width.max(spec.height) > MAX_SIDE;
-        let view_min = spec.cell_at(t.to_world(t.rect.left_bottom()));
-        let view_max = spec.cell_at(t.to_world(t.rect.right_top()));
-        let clip = |v: i64, n: u32| v.clamp(0, n as i64) as u32;
-        let (c0, r0) = (
-            clip(view_min.col - 8, spec.width),
-            clip(view_min.row - 8, spec.height),
-        );
-        let (c1, r1) = (
-            clip(view_max.col + 9, spec.width),
-            clip(view_max.row + 9, spec.height),
-        );
-        let window = Window {
-            col: c0,
-            row: r0,
-            cols: c1.saturating_sub(c0),
-            rows: r1.saturating_sub(r0),
-        };
-        let wanted =
-            large && window.cols > 0 && window.rows > 0 && window.cols.max(window.rows) <= MAX_SIDE;
-        if let Some(r) = self.detail_renderer.take()
-            && let Some((k, w)) = self.asked.1
-            && k == r.key
-        {
-            self.asked.1 = None;
-            let mut slot = self.detail.take().map(|(p, _)| p);
-            Self::upload(ctx, &mut slot, r, "grid detail");
-            self.detail = slot.map(|p| (p, w));
-        }
-        if !wanted {
-            self.detail = None;
-            return;
-        }
-        let covered = self.detail.as_ref().is_some_and(|(p, w)| {
-            p.key == key
-                && w.col <= window.col
-                && w.row <= window.row
-                && w.col + w.cols >= window.col + window.cols
-                && w.row + w.rows >= window.row + window.rows
-        });
-        if !covered && self.asked.1.is_none() {
-            // Ask for a little more than is in view, so small pans need no new picture.
-            let grow = |a: u32, n: u32, total: u32| {
-                let extra = n / 4;
-                (
-                    a.saturating_sub(extra),
-                    (n + 2 * extra).min(total - a.saturating_sub(extra)),
-                )
-            };
-            let (col, cols) = grow(window.col, window.cols, spec.width);
-            let (row, rows) = grow(window.row, window.rows, spec.height);
-            let w = Window {
-                col,
-                row,
-                cols: cols.min(MAX_SIDE),
-                rows: rows.min(MAX_SIDE),
-            };
-            self.detail_renderer.request(request(Some(w)));
-            self.asked.1 = Some((key, w));
-        }
     }
 
     /// Draws the view and returns what the user asked for.
@@ -652,7 +476,7 @@ impl GridView {
         {
             pick_cell(p, &mut actions);
         }
-        self.measure_ui(&painter, &t, rect, response.hover_pos());
+        self.measure.ui(&painter, &t, rect, response.hover_pos());
 
         // Hover readout.
         self.hover = response.hover_pos().map(|p| {
@@ -724,47 +548,6 @@ impl GridView {
         }
         actions
     }
-
-    /// The measured line, its length and heading, and a hint while measuring.
-    fn measure_ui(
-        &self,
-        painter: &egui::Painter,
-        t: &ViewTransform,
-        rect: Rect,
-        pointer: Option<Pos2>,
-    ) {
-        let stroke = Stroke::new(2.0, Color32::from_rgb(250, 240, 80));
-        let ends: Vec<Pos2> = self
-            .measure
-            .points
-            .iter()
-            .map(|p| t.to_screen(*p))
-            .collect();
-        for e in &ends {
-            painter.circle_stroke(*e, 4.0, stroke);
-        }
-        if let (true, [a], Some(p)) = (self.measure.active, &ends[..], pointer) {
-            painter.line_segment([*a, p], Stroke::new(1.0, stroke.color));
-        }
-        if let Some((length, heading)) = self.measure.result() {
-            painter.line_segment([ends[0], ends[1]], stroke);
-            let mid = ends[0] + (ends[1] - ends[0]) / 2.0;
-            overlay_text(
-                painter,
-                mid + vec2(8.0, -8.0),
-                egui::Align2::LEFT_BOTTOM,
-                &format!("{length:.3} m, heading {:.1} deg", heading.to_degrees()),
-            );
-        }
-        if self.measure.active {
-            overlay_text(
-                painter,
-                rect.center_top() + vec2(0.0, 8.0),
-                egui::Align2::CENTER_TOP,
-                "measuring: click two points (Esc ends)",
-            );
-        }
-    }
 }
 
 #[cfg(test)]
@@ -784,19 +567,5 @@ mod tests {
         let w = t.to_world(pos2(123.0, 321.0));
         let back = t.to_screen(w);
         assert!((back - pos2(123.0, 321.0)).length() < 1e-3);
-    }
-
-    #[test]
-    fn measuring_two_points() {
-        // Geometry of a simple case: a 3-4-5 triangle.
-        let mut m = Measure::default();
-        m.start();
-        m.click(Point2::new(1.0, 1.0));
-        assert_eq!(m.result(), None);
-        m.click(Point2::new(4.0, 5.0));
-        let (d, h) = m.result().unwrap();
-        assert!((d - 5.0).abs() < 1e-12 && (h - (4.0f64).atan2(3.0)).abs() < 1e-12);
-        m.click(Point2::new(0.0, 0.0));
-        assert_eq!(m.points.len(), 1);
     }
 }

@@ -15,9 +15,13 @@ mod dialogs;
 mod document;
 mod grid_view;
 mod jobs;
+mod keys;
+mod map;
+mod measure;
 mod menu;
 mod overlay;
 pub mod palette;
+mod pictures;
 mod render;
 mod score_panel;
 pub mod settings;
@@ -44,12 +48,12 @@ pub use tuning::{TuningPanel, model_plot_bounds};
 
 use crate::fusion::TouchRecord;
 use crate::replay::DEFAULT_SNAPSHOT_BUDGET;
-use crate::{BeamRef, CellIndex, Grid};
+use crate::{CellIndex, Grid};
 use dialogs::Answer;
 use std::path::PathBuf;
 use std::sync::Arc;
 use std::time::Duration;
-use worker::{Reply, Setup, Worker};
+use worker::Worker;
 
 /// Memory for the snapshots of the map's replay, bytes.
 pub const SNAPSHOT_BUDGET: usize = DEFAULT_SNAPSHOT_BUDGET;
@@ -234,203 +238,6 @@ impl GridscopeApp {
         g
     }
 
-    /// Asks the worker for the current frame.
-    fn request_grid(&mut self) {
-        if let Some(doc) = &self.doc {
-            let setup = if std::mem::take(&mut self.resend_builder) {
-                Setup::Use(doc.builder.clone())
-            } else {
-                Setup::Keep
-            };
-            let generation = if matches!(setup, Setup::Use(_)) {
-                doc.built
-            } else {
-                doc.generation
-            };
-            self.worker.request(generation, setup, self.frame);
-        }
-    }
-
-    /// Moves to a frame (clipped to the session).
-    pub fn seek(&mut self, frame: usize) {
-        let Some(doc) = &self.doc else { return };
-        let last = doc.session.frames.len().saturating_sub(1);
-        self.frame = frame.min(last);
-        self.request_grid();
-        if let Some(p) = &mut self.pinned {
-            p.seek(self.frame);
-        }
-    }
-
-    /// Pins the current parameters as A (its map rebuilds in the background).
-    pub fn pin(&mut self) {
-        if let Some(doc) = &self.doc {
-            self.pinned = Some(Pinned::pin(doc, self.frame, self.repaint.as_ref()));
-        }
-    }
-
-    /// Test hook: the rebuild worker's next job fails as if by an internal fault, so that
-    /// recovery can be checked.
-    #[doc(hidden)]
-    pub fn crash_worker(&mut self) {
-        if let Some(doc) = &self.doc {
-            self.worker.crash_next(doc.generation, self.frame);
-        }
-    }
-
-    // ----- worker results --------------------------------------------------------------------
-
-    fn take_replies(&mut self, replies: Vec<Reply>) {
-        for r in replies {
-            let Some(doc) = &mut self.doc else { return };
-            match r {
-                Reply::Built {
-                    generation,
-                    builder,
-                } if generation == doc.generation => {
-                    doc.builder = builder;
-                    doc.built = generation;
-                }
-                Reply::Progress {
-                    generation,
-                    preview: Some(grid),
-                    ..
-                } if generation == doc.generation => {
-                    self.partial = Some(grid);
-                    self.grid_version += 1;
-                }
-                Reply::Ready {
-                    generation,
-                    frame,
-                    before,
-                    after,
-                    builder,
-                } if generation == doc.generation => {
-                    self.shown = Some(Shown {
-                        generation,
-                        frame,
-                        before,
-                        after,
-                        builder,
-                    });
-                    self.partial = None;
-                    self.grid_version += 1;
-                }
-                Reply::Failed {
-                    generation,
-                    message,
-                } => {
-                    if generation == doc.generation && doc.built != generation {
-                        // New parameters could not be applied: keep the ones that work.
-                        doc.params = doc.builder.params().clone();
-                        doc.generation = doc.built;
-                        self.tuning.reset();
-                    }
-                    self.partial = None;
-                    self.resend_builder = true;
-                    self.notice = Some(Notice::Problem(message));
-                }
-                _ => {}
-            }
-        }
-    }
-
-    /// Blocks until the worker has delivered the current frame (tests and benchmarks only).
-    pub fn wait_for_worker(&mut self) {
-        let replies = self.worker.wait(Duration::from_secs(300));
-        self.take_replies(replies);
-    }
-
-    /// Waits for every background answer in flight: file tasks, the map, A, the cell history,
-    /// the change search and the sweep (tests and benchmarks only).
-    pub fn wait_for_everything(&mut self) {
-        self.wait_for_tasks();
-        if self.take_pending_params() {
-            self.wait_for_tasks();
-        }
-        self.wait_for_worker();
-        if let Some(p) = &mut self.pinned
-            && p.drain(true)
-        {
-            self.grid_version += 1;
-        }
-        if let Some(doc) = &self.doc {
-            self.cell_panel.ensure(doc, self.selection.cell, None);
-        }
-        self.cell_panel.wait();
-        self.changes_panel.wait();
-        self.compare_panel.wait();
-        self.score_panel.wait();
-        if let Some(doc) = &self.doc {
-            let base = doc.params.clone();
-            self.sweep_panel.wait(&base);
-        }
-    }
-
-    /// Whether a rebuild, a seek or a file task is still running.
-    pub fn busy(&self) -> bool {
-        self.worker.busy() || !self.tasks.is_empty()
-    }
-
-    /// Whether the rebuild worker has a job in hand.
-    pub fn worker_busy(&self) -> bool {
-        self.worker.busy()
-    }
-
-    /// Rebuild progress (frames done, frames needed) of the running job.
-    pub fn progress(&self) -> Option<(usize, usize)> {
-        self.worker.progress
-    }
-
-    /// Labels of the file tasks running.
-    pub fn task_labels(&self) -> Vec<&str> {
-        self.tasks.iter().map(|t| t.label.as_str()).collect()
-    }
-
-    /// The grid to display: the current frame's, or a coarse preview while rebuilding.
-    pub fn display_grid(&self) -> Option<&Arc<Grid>> {
-        self.partial
-            .as_ref()
-            .or(self.shown.as_ref().map(|s| &s.after))
-    }
-
-    /// The selected beam as a reference into the session, in the frame shown.
-    pub fn selected_beam(&self) -> Option<BeamRef> {
-        let (sensor, beam) = self.selection.beam?;
-        Some(BeamRef {
-            frame: self.frame,
-            sensor,
-            beam,
-        })
-    }
-
-    /// The selected beam's footprint with before/after values, once the frame's grids are in.
-    /// One beam's cells and its frame's other beams on those cells only: cheap.
-    pub fn footprint_records(&mut self) -> &[TouchRecord] {
-        let key = match (&self.shown, self.selection.beam) {
-            (Some(s), Some((sensor, beam))) if s.frame == self.frame => {
-                Some((s.generation, self.frame, sensor, beam))
-            }
-            _ => None,
-        };
-        let Some(key) = key else {
-            return &[];
-        };
-        if self.probe.as_ref().map(|p| p.0) != Some(key) {
-            let s = self.shown.as_ref().expect("key implies grids");
-            let records = s.builder.probe(
-                &s.before,
-                BeamRef {
-                    frame: key.1,
-                    sensor: key.2,
-                    beam: key.3,
-                },
-            );
-            self.probe = Some((key, records));
-        }
-        &self.probe.as_ref().expect("just filled").1
-    }
-
     /// Applies parameters that waited for the first session; returns whether any were.
     fn take_pending_params(&mut self) -> bool {
         if self.doc.is_none() {
@@ -593,98 +400,6 @@ impl GridscopeApp {
             || self.pinned.as_ref().is_some_and(|p| p.busy());
         if waiting {
             ctx.request_repaint_after(Duration::from_millis(100));
-        }
-    }
-
-    /// Keyboard shortcuts of the menus (when no text field has the keyboard).
-    fn shortcuts(&mut self, ctx: &egui::Context) -> Vec<Action> {
-        use egui::{Key, KeyboardShortcut, Modifiers};
-        let mut out = Vec::new();
-        if ctx.egui_wants_keyboard_input() {
-            return out;
-        }
-        let cmd = Modifiers::COMMAND;
-        let cmd_shift = Modifiers::COMMAND | Modifiers::SHIFT;
-        let pressed = |m: Modifiers, k: Key| {
-            ctx.input_mut(|i| i.consume_shortcut(&KeyboardShortcut::new(m, k)))
-        };
-        let doc = self.doc.as_ref();
-        if pressed(cmd_shift, Key::Z) || pressed(cmd, Key::Y) {
-            out.push(Action::Redo);
-        }
-        if pressed(cmd, Key::Z) {
-            out.push(Action::Undo);
-        }
-        if pressed(cmd_shift, Key::E) {
-            self.file_menu.open_prompt(menu::Purpose::ExportView, doc);
-        }
-        if pressed(cmd, Key::E) {
-            self.file_menu.open_prompt(menu::Purpose::ExportBundle, doc);
-        }
-        if pressed(cmd, Key::O) {
-            self.file_menu.open_prompt(menu::Purpose::Open, doc);
-        }
-        if pressed(cmd, Key::S) && doc.is_some() {
-            self.file_menu.open_prompt(menu::Purpose::SaveParams, doc);
-        }
-        if pressed(cmd, Key::G) {
-            out.push(Action::Ask(Dialog::GoToFrame {
-                text: self.frame.to_string(),
-            }));
-        }
-        if pressed(cmd, Key::L) {
-            let c = self.grid_view.centre;
-            out.push(Action::Ask(Dialog::GoToPoint { x: c.x, y: c.y }));
-        }
-        if pressed(Modifiers::NONE, Key::F1) {
-            out.push(Action::Ask(Dialog::Shortcuts));
-        }
-        if pressed(Modifiers::NONE, Key::F) {
-            self.grid_view.request_fit();
-        }
-        if pressed(Modifiers::NONE, Key::Plus) || pressed(Modifiers::NONE, Key::Equals) {
-            self.grid_view.zoom_by(1.25);
-        }
-        if pressed(Modifiers::NONE, Key::Minus) {
-            self.grid_view.zoom_by(0.8);
-        }
-        if pressed(Modifiers::NONE, Key::M) {
-            self.grid_view.measure.start();
-        }
-        if pressed(Modifiers::NONE, Key::Escape) {
-            self.grid_view.measure.stop();
-        }
-        out
-    }
-
-    /// Asks before the window closes with unsaved parameters.
-    fn close_request(&mut self, ctx: &egui::Context) {
-        if ctx.input(|i| i.viewport().close_requested())
-            && !self.allow_close
-            && self.doc.as_ref().is_some_and(|d| d.unsaved())
-        {
-            ctx.send_viewport_cmd(egui::ViewportCommand::CancelClose);
-            self.dialog = Some(Dialog::CloseUnsaved);
-        }
-    }
-
-    /// The window's title: the session, and a mark while parameters are unsaved.
-    fn window_title(&mut self, ctx: &egui::Context) {
-        let title = match &self.doc {
-            Some(d) => format!(
-                "gridscope - {}{}",
-                d.session.name,
-                if d.unsaved() {
-                    " (parameters not saved)"
-                } else {
-                    ""
-                }
-            ),
-            None => "gridscope".to_string(),
-        };
-        if title != self.title {
-            ctx.send_viewport_cmd(egui::ViewportCommand::Title(title.clone()));
-            self.title = title;
         }
     }
 

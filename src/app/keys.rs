@@ -60,7 +60,7 @@ impl GridscopeApp {
         if pressed(Modifiers::NONE, Key::M) {
             self.grid_view.measure.start();
         }
-        if pressed(Modifiers::NONE, Key::Escape) {
+        if self.grid_view.measure.active && ctx.input(|i| i.key_pressed(Key::Escape)) {
             self.grid_view.measure.stop();
         }
         out

@@ -109,6 +109,20 @@ impl SweepPanel {
         }
     }
 
+    /// Sets the swept parameters (as the panel's fields would).
+    pub fn set_axes(&mut self, first: &Vary, second: Option<&Vary>) {
+        fn axis(v: &Vary) -> Axis {
+            Axis {
+                name: v.name.clone(),
+                from: v.from,
+                to: v.to,
+                steps: v.steps,
+            }
+        }
+        self.first = axis(first);
+        self.second = second.map(axis);
+    }
+
     /// Whether a finished sweep's results are shown.
     pub fn has_result(&self) -> bool {
         self.result.is_some()

@@ -1,6 +1,7 @@
 //! Integration test modules; shared helpers live here.
 
 mod cli;
+mod desktop;
 mod diagnosis;
 mod hostile;
 mod independent;

@@ -8,6 +8,7 @@
 
 mod actions;
 mod beam_panel;
+pub mod bench;
 mod cell_panel;
 mod changes_panel;
 mod compare;

@@ -103,6 +103,11 @@ impl LikelihoodField {
     /// times as large as the grid's (a coarse cell is occupied when any of its cells is), with
     /// `sigma` = one coarse cell.
     pub fn of_grid(grid: &Grid, factor: u32) -> LikelihoodField {
+        Self::of_grid_above(grid, factor, 0.0)
+    }
+
+    /// As [`LikelihoodField::of_grid`], a cell occupied when its log-odds exceed `threshold`.
+    pub fn of_grid_above(grid: &Grid, factor: u32, threshold: f32) -> LikelihoodField {
         let factor = factor.max(1);
         let s = grid.spec();
         let spec = GridSpec {
@@ -114,7 +119,7 @@ impl LikelihoodField {
         let mut marked = vec![false; spec.cells()];
         let w = s.width as usize;
         for (i, &l) in grid.values().iter().enumerate() {
-            if l > 0.0 {
+            if l > threshold {
                 let (c, r) = (i % w, i / w);
                 let k = (r / factor as usize) * spec.width as usize + c / factor as usize;
                 marked[k] = true;
@@ -141,6 +146,27 @@ impl LikelihoodField {
         self.spec
             .index(self.spec.cell_at(p))
             .map_or(0.0, |i| self.values[i])
+    }
+
+    /// The field at a world point, interpolated bilinearly between the lattice's cell centres
+    /// (0 outside the lattice): continuous in the point, for searches finer than a cell.
+    pub fn at_smooth(&self, p: Point2) -> f32 {
+        let s = &self.spec;
+        let u = (p.x - s.origin.x) / s.resolution - 0.5;
+        let v = (p.y - s.origin.y) / s.resolution - 0.5;
+        if !(u.is_finite() && v.is_finite()) {
+            return 0.0;
+        }
+        let (c0, r0) = (u.floor(), v.floor());
+        let (fu, fv) = ((u - c0) as f32, (v - r0) as f32);
+        let (c0, r0) = (c0 as i64, r0 as i64);
+        let get = |c: i64, r: i64| {
+            s.index(crate::grid::CellIndex::new(c, r))
+                .map_or(0.0, |i| self.values[i])
+        };
+        let top = get(c0, r0) * (1.0 - fu) + get(c0 + 1, r0) * fu;
+        let bottom = get(c0, r0 + 1) * (1.0 - fu) + get(c0 + 1, r0 + 1) * fu;
+        top * (1.0 - fv) + bottom * fv
     }
 
     /// Mean field value of `points` moved by `pose` (0 for no points): 1 when every point lies

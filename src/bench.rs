@@ -5,8 +5,9 @@
 //! memory floor as a cell update meets it; the same pass in vector instructions is reported
 //! beside it), the full rebuild on one thread and on all threads (and whether the two grids
 //! are identical bit for bit), seeks of the window's replay engine to random frames, and
-//! loading the session's ranges from the packed (NumPy) layout against parsing them from RON.
-//! Each timing is the median of several repetitions; the floor passes, the two rebuilds and
+//! loading the session's ranges from the packed (NumPy) layout against parsing them from RON,
+//! and the diagnosis: the run's agreement, a fit of the mount heading and clock, and the
+//! realignment of a stretch of [`REALIGN_FRAMES`] frames. Each timing is the median of several repetitions; the floor passes, the two rebuilds and
 //! the independent copies (below) take turns, and each ratio is the median of the repetitions'
 //! own ratios. Beside the speedup it reports what the machine gives at that moment to as many
 //! independent one-thread rebuilds as there are threads, run at once (`copies_speedup`), and
@@ -14,6 +15,7 @@
 //! parallel split's; and the quartiles of the repetitions' speedups, to show their spread.
 //! Speed targets belong here, never in tests.
 
+use crate::diagnose::{self, CalibrationField};
 use crate::error::Error;
 use crate::fusion::{CellBounds, MapBuilder};
 use crate::limits::{MAX_BEAMS_PER_SCAN, MAX_FRAMES, MAX_SIMULATED_READINGS};
@@ -31,6 +33,9 @@ use std::time::Instant;
 /// by 0.2 from run to run; 21 make the median steadier for a bench of about a minute (README,
 /// Performance, has the figures).
 pub const DEFAULT_REPS: usize = 21;
+
+/// Frames of the stretch the benchmark re-aligns.
+pub const REALIGN_FRAMES: usize = 40;
 
 /// What to measure.
 #[derive(Clone, Debug, PartialEq)]
@@ -270,6 +275,35 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     let seek_max = seeks.iter().copied().fold(0.0, f64::max);
     let seek_median = median(seeks);
 
+    say("diagnosis: the run's agreement, a fit of the mount heading and clock, a realignment");
+    let t = Instant::now();
+    let run = all.install(|| diagnose::agreement(&builder, &never, &mut |_| {}))?;
+    let agreement_s = t.elapsed().as_secs_f64();
+    let t = Instant::now();
+    let fit = all.install(|| {
+        diagnose::calibrate(
+            &session,
+            builder.params(),
+            &session.sensors[0].id,
+            &[CalibrationField::MountTheta, CalibrationField::TimeOffset],
+            &never,
+            &|_| {},
+        )
+    })?;
+    let fit_s = t.elapsed().as_secs_f64();
+    let stretch = n / 2..(n / 2 + REALIGN_FRAMES).min(n);
+    let t = Instant::now();
+    all.install(|| {
+        diagnose::realign(
+            &builder,
+            stretch.clone(),
+            diagnose::RealignWindow::default(),
+            &never,
+            &|_| {},
+        )
+    })?;
+    let realign_s = t.elapsed().as_secs_f64();
+
     say("loading ranges");
     let (load_rate, ron_rate) = load_rates(&session, opts.reps)?;
 
@@ -314,6 +348,16 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
         format!("{:.0}", load_rate / ron_rate),
     );
     put("simulate_s", format!("{sim_s:.2}"));
+    put("agreement_s", format!("{agreement_s:.2}"));
+    put(
+        "run_agreement",
+        run.overall().map_or("nan".into(), |a| format!("{a:.3}")),
+    );
+    put("fit_s", format!("{fit_s:.2}"));
+    put("fit_evaluations", fit.evaluations.to_string());
+    put("fit_frames_used", fit.frames_used.to_string());
+    put("realign_s", format!("{realign_s:.2}"));
+    put("realign_frames", stretch.len().to_string());
     Ok(out)
 }
 

@@ -1,4 +1,4 @@
-//! The demo sessions compiled into the binary: three runs through our Kestrel Yard building,
+//! The demo sessions compiled into the binary: four runs through our Kestrel Yard building,
 //! each with its floor plan, a suggested parameter profile and the plan's reference map.
 //!
 //! They are the files under `sample-sessions/`, embedded as text and bytes so that
@@ -62,6 +62,10 @@ pub const DEMOS: &[Demo] = &[
     demo!(
         "glass-pass",
         "laser and bumper sonars beside a glass partition the laser mostly passes"
+    ),
+    demo!(
+        "pose-slip",
+        "a laser tour with a 5 s localizer slip, a 2-degree mount error and a 40 ms clock lag"
     ),
 ];
 

@@ -27,6 +27,7 @@ pub mod app;
 pub(crate) mod bench;
 pub mod commands;
 pub mod demo;
+pub mod diagnose;
 mod error;
 pub mod export;
 pub(crate) mod footprint;

@@ -7,12 +7,14 @@
 
 mod bench;
 mod build;
+mod diagnose;
 mod inspect;
 mod score;
 mod sweep;
 
 pub use bench::BenchArgs;
 pub use build::{BuildArgs, PackArgs, SimulateArgs};
+pub use diagnose::{AgreementArgs, CalibrateArgs, RealignArgs};
 pub use inspect::{HistoryArgs, InfoArgs};
 pub use score::ScoreArgs;
 pub use sweep::SweepArgs;
@@ -64,6 +66,13 @@ pub enum Command {
     Simulate(SimulateArgs),
     /// Convert a session to the packed layout (NumPy arrays beside a RON header), or back.
     Pack(PackArgs),
+    /// Per-frame agreement of a session's readings with its map, as CSV
+    /// (frame,t,agreement,...), and the stretches of frames well below the run's typical value.
+    Agreement(AgreementArgs),
+    /// Fit a sensor's mount (x, y, theta) and clock offset to the run; prints key=value lines.
+    Calibrate(CalibrateArgs),
+    /// Re-align the poses of a stretch of frames to the map of the others; saves a new session.
+    Realign(RealignArgs),
     /// Measure rebuild, seek and load speed on a generated building; prints key=value lines.
     Bench(BenchArgs),
 }
@@ -81,7 +90,19 @@ pub struct OpenArgs {
 
 /// The names of the commands, for the mistyped-command message.
 const COMMANDS: &[&str] = &[
-    "open", "build", "info", "history", "score", "sweep", "simulate", "pack", "bench", "help",
+    "open",
+    "build",
+    "info",
+    "history",
+    "score",
+    "sweep",
+    "simulate",
+    "pack",
+    "agreement",
+    "calibrate",
+    "realign",
+    "bench",
+    "help",
 ];
 
 /// Parses the command line. A first word that is neither a command nor an existing file, and
@@ -145,6 +166,9 @@ pub fn run(command: Command, out: &mut dyn Write) -> Result<(), Error> {
         Command::Sweep(a) => sweep::sweep(&a, out),
         Command::Simulate(a) => build::simulate(&a, out),
         Command::Pack(a) => build::pack(&a, out),
+        Command::Agreement(a) => diagnose::agreement(&a, out),
+        Command::Calibrate(a) => diagnose::calibrate(&a, out),
+        Command::Realign(a) => diagnose::realign(&a, out),
         Command::Bench(a) => bench::bench(&a, out),
         Command::Open(_) => Err(Error::Failed(
             "`open` runs the window, not a batch command".into(),

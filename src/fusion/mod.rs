@@ -126,6 +126,11 @@ impl MapBuilder {
         self.bounds
     }
 
+    /// logit(prior): the value of a cell nothing has touched, log-odds.
+    pub fn prior(&self) -> f32 {
+        self.prior
+    }
+
     /// A grid with every cell at logit(prior).
     pub fn blank(&self) -> Grid {
         Grid::filled(self.spec, self.prior)

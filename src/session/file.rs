@@ -214,4 +214,41 @@ impl Session {
         s.push_str("    ],\n)\n");
         s
     }
+
+    /// Writes the session to `path`, inline (`packed: false`) or in the packed layout (arrays
+    /// beside the header), all or nothing, and returns the files written. Refuses to write
+    /// over `input`, the file the session came from, or over any existing file: a derived run
+    /// (re-aligned, say) is always saved beside the original.
+    pub fn save_as(
+        &self,
+        path: &Path,
+        packed: bool,
+        input: Option<&Path>,
+    ) -> Result<Vec<std::path::PathBuf>, crate::Error> {
+        let same = |a: &Path, b: &Path| match (a.canonicalize(), b.canonicalize()) {
+            (Ok(a), Ok(b)) => a == b,
+            _ => a == b,
+        };
+        if input.is_some_and(|i| same(i, path)) || path.exists() {
+            return Err(InputError::new(
+                path.display().to_string(),
+                Problem::BadField {
+                    field: "output".into(),
+                    reason: "already exists; a derived run is saved under a new name and \
+                             never over its input"
+                        .into(),
+                },
+            )
+            .into());
+        }
+        if packed {
+            packed::write_packed(self, path)
+        } else {
+            crate::io::atomic::write_all_atomically(&[(
+                path.to_path_buf(),
+                self.to_ron_string().into_bytes(),
+            )])?;
+            Ok(vec![path.to_path_buf()])
+        }
+    }
 }

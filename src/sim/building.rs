@@ -205,6 +205,7 @@ pub fn building_plan(spec: &BuildingSpec) -> FloorPlan {
         }],
         seed: spec.seed,
         reference_resolution: 0.05,
+        faults: Default::default(),
     }
 }
 

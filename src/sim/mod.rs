@@ -12,7 +12,10 @@ mod plan;
 mod rng;
 
 pub use building::{BuildingSpec, building_plan};
-pub use plan::{FloorPlan, Material, NoReturnReport, Noise, Route, SimSensor, Wall, Window};
+pub use plan::{
+    Faults, FloorPlan, Material, NoReturnReport, Noise, PoseError, PoseFault, Route, SensorFault,
+    SimSensor, Wall, Window,
+};
 pub use rng::Rng;
 
 use crate::error::{Error, InputError};
@@ -222,33 +225,35 @@ fn exit_distance(origin: Point2, dir: (f64, f64), b: &WorldBox) -> f64 {
         .max(0.0)
 }
 
+/// The pose along a route's pieces at time `t` seconds (held at the ends).
+fn pose_on(pieces: &[Piece], t: f64) -> Pose2 {
+    let k = pieces
+        .partition_point(|p| p.start + p.duration <= t)
+        .min(pieces.len().saturating_sub(1));
+    match pieces.get(k) {
+        Some(piece) => {
+            let u = ((t - piece.start) / piece.duration).clamp(0.0, 1.0);
+            Pose2::new(
+                piece.from.x + u * (piece.to.x - piece.from.x),
+                piece.from.y + u * (piece.to.y - piece.from.y),
+                wrap_angle(piece.from.theta + u * (piece.to.theta - piece.from.theta)),
+            )
+        }
+        None => Pose2::default(),
+    }
+}
+
 /// The robot's pose at each frame time along a route (a route checked by
 /// [`FloorPlan::validate`], whose frame count is bounded).
 pub fn route_poses(route: &Route) -> Vec<(f64, Pose2)> {
     let (pieces, _) = route_pieces(route);
     let count = route_frame_count(route).unwrap_or(0) as usize;
-    let last = pieces.last().map(|p| p.to);
-    let mut out = Vec::with_capacity(count);
-    let mut k = 0;
-    for i in 0..count {
-        let ti = i as f64 / route.rate;
-        while k + 1 < pieces.len() && ti >= pieces[k].start + pieces[k].duration {
-            k += 1;
-        }
-        let p = match pieces.get(k) {
-            Some(piece) => {
-                let u = ((ti - piece.start) / piece.duration).clamp(0.0, 1.0);
-                Pose2::new(
-                    piece.from.x + u * (piece.to.x - piece.from.x),
-                    piece.from.y + u * (piece.to.y - piece.from.y),
-                    wrap_angle(piece.from.theta + u * (piece.to.theta - piece.from.theta)),
-                )
-            }
-            None => last.unwrap_or_default(),
-        };
-        out.push((ti, p));
-    }
-    out
+    (0..count)
+        .map(|i| {
+            let t = i as f64 / route.rate;
+            (t, pose_on(&pieces, t))
+        })
+        .collect()
 }
 
 /// Rounds a range to whole millimetres, as many sensors report them.
@@ -272,6 +277,7 @@ pub fn simulate(plan: &FloorPlan) -> Result<Session, InputError> {
         .collect();
     // The scene is rebuilt only when a timed wall appears or disappears.
     let mut scene: Option<(Vec<bool>, Scene)> = None;
+    let (pieces, _) = route_pieces(&plan.route);
     for (t, pose) in route_poses(&plan.route) {
         let present: Vec<bool> = plan.walls.iter().map(|w| w.exists_at(t)).collect();
         if scene.as_ref().is_none_or(|(p, _)| *p != present) {
@@ -281,7 +287,19 @@ pub fn simulate(plan: &FloorPlan) -> Result<Session, InputError> {
         for (sim, buf) in plan.sensors.iter().zip(buffers.iter_mut()) {
             buf.clear();
             let s = &sim.sensor;
-            let mount = pose.compose(&s.mount);
+            // Where the sensor truly was: its true mount, at the time it truly scanned.
+            let fault = plan.faults.sensors.get(&s.id).copied().unwrap_or_default();
+            let true_pose = if fault.lag == 0.0 {
+                pose
+            } else {
+                pose_on(&pieces, t + fault.lag)
+            };
+            let true_mount = Pose2::new(
+                s.mount.x + fault.mount.x,
+                s.mount.y + fault.mount.y,
+                s.mount.theta + fault.mount.theta,
+            );
+            let mount = true_pose.compose(&true_mount);
             for k in 0..s.beam_count() {
                 let heading = mount.theta + s.angles.angle(k);
                 let truth = match s.kind {
@@ -339,8 +357,11 @@ pub fn simulate(plan: &FloorPlan) -> Result<Session, InputError> {
             .zip(&buffers)
             .map(|(s, b)| (s.sensor.id.as_str(), b.as_slice()))
             .collect();
+        // The pose the session records, with the plan's pose errors.
+        let e = plan.faults.pose_error(t);
+        let recorded = Pose2::new(pose.x + e.x, pose.y + e.y, pose.theta + e.theta);
         session
-            .push_frame(t, pose, &scans)
+            .push_frame(t, recorded, &scans)
             .map_err(|p| InputError::new(plan.name.clone(), p))?;
     }
     Ok(session)
@@ -463,6 +484,7 @@ mod tests {
             }],
             seed: 1,
             reference_resolution: 0.1,
+            faults: Faults::default(),
         }
     }
 

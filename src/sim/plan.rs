@@ -5,12 +5,13 @@
 //! through it, wide beams reflect) and may exist only between two times (a door).
 
 use crate::error::{InputError, Problem};
-use crate::geometry::Point2;
+use crate::geometry::{Point2, Pose2};
 use crate::io::doc;
 use crate::io::read::read_text;
 use crate::limits::{MAX_FRAMES, MAX_SIMULATED_READINGS};
 use crate::session::Sensor;
 use serde::{Deserialize, Serialize};
+use std::collections::BTreeMap;
 use std::path::Path;
 
 /// What a wall is made of.
@@ -120,6 +121,76 @@ fn default_cone_rays() -> u32 {
     9
 }
 
+/// An error of the recorded robot pose over a time window (the robot truly follows its route;
+/// the session records a wrong pose), world frame.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub enum PoseError {
+    /// The recorded pose is off by this much (metres, metres, radians) throughout the window,
+    /// as after a localizer slip.
+    Jump(Pose2),
+    /// The recorded pose drifts away by this much per second from the window's start.
+    Drift(Pose2),
+}
+
+/// A pose error between two times, seconds (`from <= t < until`).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PoseFault {
+    /// Start, seconds.
+    pub from: f64,
+    /// End (exclusive), seconds.
+    pub until: f64,
+    /// The error.
+    pub error: PoseError,
+}
+
+/// How one sensor truly differs from what the session records about it.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct SensorFault {
+    /// The true mount is the recorded mount plus this (x, y metres; theta radians), which a
+    /// calibration should find as the sensor's correction.
+    pub mount: Pose2,
+    /// A scan stamped t was truly taken at t + lag seconds (the calibration's time offset).
+    pub lag: f64,
+}
+
+/// Faults of a run, with known truth: what the recorded poses and sensors get wrong.
+#[derive(Clone, Debug, Default, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Faults {
+    /// Errors of the recorded robot pose.
+    pub poses: Vec<PoseFault>,
+    /// Per sensor id, how it truly sits and when it truly scans.
+    pub sensors: BTreeMap<String, SensorFault>,
+}
+
+impl Faults {
+    /// Whether the run has no faults.
+    pub fn is_empty(&self) -> bool {
+        self.poses.is_empty() && self.sensors.is_empty()
+    }
+
+    /// The error of the recorded pose at time `t`, world frame (zero outside every window).
+    pub fn pose_error(&self, t: f64) -> Pose2 {
+        let mut e = Pose2::default();
+        for f in &self.poses {
+            if t >= f.from && t < f.until {
+                let d = match f.error {
+                    PoseError::Jump(d) => d,
+                    PoseError::Drift(rate) => {
+                        let s = t - f.from;
+                        Pose2::new(rate.x * s, rate.y * s, rate.theta * s)
+                    }
+                };
+                e = Pose2::new(e.x + d.x, e.y + d.y, e.theta + d.theta);
+            }
+        }
+        e
+    }
+}
+
 /// A complete simulation scenario.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -148,6 +219,9 @@ pub struct FloorPlan {
     /// Cell side of the reference map, metres.
     #[serde(default = "default_reference_resolution")]
     pub reference_resolution: f64,
+    /// Faults with known truth: wrong recorded poses, mounts and timestamps.
+    #[serde(default, skip_serializing_if = "Faults::is_empty")]
+    pub faults: Faults,
 }
 
 fn default_reference_resolution() -> f64 {
@@ -318,6 +392,31 @@ impl FloorPlan {
         }
         if !(self.reference_resolution.is_finite() && self.reference_resolution > 0.0) {
             return Err(bad("reference_resolution".into(), "must be > 0 metres"));
+        }
+        for (i, f) in self.faults.poses.iter().enumerate() {
+            let e = match f.error {
+                PoseError::Jump(e) | PoseError::Drift(e) => e,
+            };
+            if !(f.from.is_finite() && f.until.is_finite() && f.from < f.until && e.is_finite()) {
+                return Err(bad(
+                    format!("faults.poses[{i}]"),
+                    "needs finite times with from < until and a finite error",
+                ));
+            }
+        }
+        for (id, f) in &self.faults.sensors {
+            if !self.sensors.iter().any(|s| &s.sensor.id == id) {
+                return Err(bad(
+                    format!("faults.sensors[{id:?}]"),
+                    "names no sensor of the plan",
+                ));
+            }
+            if !(f.mount.is_finite() && f.lag.is_finite() && f.lag.abs() <= 10.0) {
+                return Err(bad(
+                    format!("faults.sensors[{id:?}]"),
+                    "needs a finite mount error and a lag within 10 s",
+                ));
+            }
         }
         Ok(())
     }

@@ -357,3 +357,129 @@ fn sweep_finds_the_known_best_clamp() {
     ]);
     assert_eq!(o.status.code(), Some(2));
 }
+
+/// `key=value` lines of a report.
+fn pairs(text: &str) -> std::collections::HashMap<String, String> {
+    text.lines()
+        .filter_map(|l| l.split_once('='))
+        .map(|(k, v)| (k.to_string(), v.to_string()))
+        .collect()
+}
+
+#[test]
+fn agreement_calibrate_and_realign_from_the_command_line() {
+    let dir = scratch("diagnose-cli");
+    let csv = dir.join("agreement.csv");
+    let o = gridscope(&[
+        "agreement",
+        "demo:pose-slip",
+        "--params",
+        "demo:pose-slip",
+        "--out",
+        csv.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = std::fs::read_to_string(&csv).unwrap();
+    let mut lines = text.lines();
+    assert!(lines.next().unwrap().starts_with("frame,t,agreement"));
+    let session = gridscope::demo::session("pose-slip").unwrap();
+    assert_eq!(lines.count(), session.frames.len());
+
+    // The plan's faults: the scanner sits 0.0349066 rad off and lags 0.04 s.
+    let saved = dir.join("fitted.params.ron");
+    let o = gridscope(&[
+        "calibrate",
+        "demo:pose-slip",
+        "--params",
+        "demo:pose-slip",
+        "--sensor",
+        "lidar",
+        "--fit",
+        "mount_theta,time_offset",
+        "--save",
+        saved.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let report = pairs(&String::from_utf8_lossy(&o.stdout));
+    let num = |k: &str| report[k].parse::<f64>().unwrap();
+    assert!((num("mount_theta") - 0.0349066).abs() < 0.25f64.to_radians());
+    assert!((num("time_offset") - 0.04).abs() < 0.01);
+    assert_eq!(num("mount_x"), 0.0, "not fitted, so unchanged");
+    assert!(num("agreement_after") > num("agreement_before"));
+    let profile = Params::load(&saved).unwrap();
+    assert_eq!(profile.calibration["lidar"].mount_theta, num("mount_theta"));
+
+    // With the fitted profile the slip (40 s to 45 s: frames 320..360) is the suspect.
+    let o = gridscope(&[
+        "agreement",
+        "demo:pose-slip",
+        "--params",
+        saved.to_str().unwrap(),
+        "--out",
+        csv.to_str().unwrap(),
+    ]);
+    let out = String::from_utf8_lossy(&o.stdout).into_owned();
+    let suspect = out
+        .lines()
+        .filter_map(|l| l.strip_prefix("suspect="))
+        .map(|l| l.split_whitespace().next().unwrap().to_string())
+        .find(|r| r.starts_with("31") || r.starts_with("32"))
+        .unwrap_or_else(|| panic!("no suspect at the slip: {out}"));
+    let fixed = dir.join("fixed.session.ron");
+    let o = gridscope(&[
+        "realign",
+        "demo:pose-slip",
+        "--params",
+        saved.to_str().unwrap(),
+        "--frames",
+        &suspect,
+        "--out",
+        fixed.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let report = pairs(&String::from_utf8_lossy(&o.stdout));
+    let num = |k: &str| report[k].parse::<f64>().unwrap();
+    assert!(
+        num("agreement_after") > num("agreement_before") + 0.3,
+        "{report:?}"
+    );
+    assert!((num("mean_shift_m") - 0.3).abs() < 0.06, "{report:?}");
+    let realigned = Session::load(&fixed).unwrap();
+    assert_eq!(realigned.frames.len(), session.frames.len());
+
+    // Never over the input or an existing file; a bad list names the option.
+    let o = gridscope(&[
+        "realign",
+        fixed.to_str().unwrap(),
+        "--frames",
+        "5..9",
+        "--out",
+        fixed.to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        super::stderr(&o).contains("never over its input"),
+        "{}",
+        super::stderr(&o)
+    );
+    let o = gridscope(&[
+        "calibrate",
+        "demo:pose-slip",
+        "--sensor",
+        "lidar",
+        "--fit",
+        "mount_yaw",
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(super::stderr(&o).contains("--fit"), "{}", super::stderr(&o));
+    let o = gridscope(&[
+        "calibrate",
+        "demo:pose-slip",
+        "--sensor",
+        "sonar",
+        "--fit",
+        "mount_x",
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(super::stderr(&o).contains("lidar"), "{}", super::stderr(&o));
+}

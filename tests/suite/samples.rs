@@ -71,3 +71,68 @@ fn door_cycle_doorway_vanishes_under_the_recorded_profile() {
         "recorded profile reopens at {loose}, tight at {tight}"
     );
 }
+
+#[test]
+fn pose_slip_story_finds_the_slip_fits_the_mount_and_clock_and_realigns() {
+    // The documented story, against the faults written in the plan: the localizer slipped
+    // from 40 s to 45 s (frames 320..360), the scanner sits 2 degrees off its recorded mount
+    // and its stamps lag the poses by 40 ms.
+    use gridscope::diagnose::{
+        CalibrationField, RealignWindow, agreement, calibrate, realign, suspect_stretches,
+    };
+    use std::sync::atomic::AtomicBool;
+    let never = AtomicBool::new(false);
+    let plan = FloorPlan::load(&samples_dir().join("pose-slip.plan.ron")).unwrap();
+    let truth = plan.faults.sensors["lidar"];
+    let s = Arc::new(demo::session("pose-slip").unwrap());
+    let recorded = demo::params("pose-slip").unwrap();
+    let fit = calibrate(
+        &s,
+        &recorded,
+        "lidar",
+        &[CalibrationField::MountTheta, CalibrationField::TimeOffset],
+        &never,
+        &|_| {},
+    )
+    .unwrap();
+    assert!(
+        (fit.after.mount_theta - truth.mount.theta)
+            .to_degrees()
+            .abs()
+            <= 0.25,
+        "{fit:?}"
+    );
+    assert!(
+        (fit.after.time_offset - truth.lag).abs() <= 0.010,
+        "{fit:?}"
+    );
+    assert!(
+        fit.agreement.1.unwrap() > fit.agreement.0.unwrap() + 0.1,
+        "{fit:?}"
+    );
+    let calibrated = fit.apply(&recorded);
+    let b = MapBuilder::new(s.clone(), calibrated.clone()).unwrap();
+    let run = agreement(&b, &never, &mut |_| {}).unwrap();
+    let (_, stretches) = suspect_stretches(&run.frames).unwrap();
+    let slip = stretches
+        .iter()
+        .max_by_key(|st| st.frames.len())
+        .expect("a suspect stretch");
+    assert!(
+        slip.frames.start >= 315 && slip.frames.start <= 322 && slip.frames.end >= 355,
+        "{stretches:?}"
+    );
+    let r = realign(
+        &b,
+        slip.frames.clone(),
+        RealignWindow::default(),
+        &never,
+        &|_| {},
+    )
+    .unwrap();
+    let (before, after) = r.mean_agreement();
+    assert!(
+        after.unwrap() > before.unwrap() + 0.3,
+        "{before:?} -> {after:?}"
+    );
+}

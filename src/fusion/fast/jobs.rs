@@ -104,9 +104,16 @@ impl MapBuilder {
         let (w, h) = (spec.width as i64, spec.height as i64);
         let span = |a: CellIndex, b: CellIndex| {
             // One cell of slack for end points on cell boundaries.
+            // Saturating: a far end point of a hostile beam may sit at the edge of i64.
             Span::of_cells(
-                CellIndex::new(a.col.min(b.col) - 1, a.row.min(b.row) - 1),
-                CellIndex::new(a.col.max(b.col) + 1, a.row.max(b.row) + 1),
+                CellIndex::new(
+                    a.col.min(b.col).saturating_sub(1),
+                    a.row.min(b.row).saturating_sub(1),
+                ),
+                CellIndex::new(
+                    a.col.max(b.col).saturating_add(1),
+                    a.row.max(b.row).saturating_add(1),
+                ),
                 w,
                 h,
             )

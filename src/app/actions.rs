@@ -1,6 +1,7 @@
 //! What panels ask for, and how the application carries it out: [`Action`] and
-//! [`GridscopeApp::apply`], with the undo history of parameter edits and the confirmations
-//! asked before work would be discarded or a file overwritten.
+//! [`GridscopeApp::apply`], with the undo history of edits (the parameters, and the run's poses
+//! once re-aligned) and the confirmations asked before work would be discarded or a file
+//! overwritten.
 //!
 //! Design decision: a panel never changes another panel's state; it returns actions, applied
 //! after every panel is drawn. An action that would lose work (replacing the session while A is
@@ -12,8 +13,11 @@ use super::settings::InspectorTab;
 use super::{GridscopeApp, Layer};
 use crate::geometry::Point2;
 use crate::params::Params;
+use crate::session::Session;
 use crate::{BeamRef, CellIndex};
+use std::ops::Range;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 /// Something a panel asks the application to do.
 #[derive(Clone, Debug, PartialEq)]
@@ -90,6 +94,25 @@ pub enum Action {
     StartSweep,
     /// Start the change search set up in the changes panel.
     FindChanges,
+    /// Check every frame's agreement with the map of the rest of the run (Poses tab).
+    CheckAgreement,
+    /// Leave these frames out of the fusion (an edit of the parameters).
+    LeaveOutFrames(Range<usize>),
+    /// Re-align the poses of these frames on the map of the other frames.
+    Realign(Range<usize>),
+    /// Start the fit of mount and clock corrections set up in the Poses tab.
+    StartFit,
+    /// Replace the re-aligned frames' poses in the open run (an edit).
+    UseRealigned,
+    /// Drop the last re-alignment.
+    DiscardRealigned,
+    /// Save the open run (with any re-aligned poses) as a new session file.
+    SaveSession {
+        /// The new file; never the input or an existing file.
+        path: PathBuf,
+        /// Write the packed layout (arrays beside the header) instead of one inline file.
+        packed: bool,
+    },
     /// Show an inspector tab.
     ShowTab(InspectorTab),
     /// Ask something first.
@@ -98,11 +121,20 @@ pub enum Action {
     Confirmed(Box<Action>),
 }
 
-/// The parameters before each edit (for undo) and after each undone one (for redo).
+/// What an edit changes: the parameters, and the run they apply to (whose poses a
+/// re-alignment replaces). Sessions are shared, so a version costs a pointer unless its poses
+/// differ.
+#[derive(Clone)]
+struct Version {
+    params: Params,
+    session: Arc<Session>,
+}
+
+/// The versions before each edit (for undo) and after each undone one (for redo).
 #[derive(Default)]
 pub struct Edits {
-    undo: Vec<Params>,
-    redo: Vec<Params>,
+    undo: Vec<Version>,
+    redo: Vec<Version>,
 }
 
 impl Edits {
@@ -203,6 +235,40 @@ impl GridscopeApp {
                     self.changes_panel.start(doc, self.repaint.clone());
                 }
             }
+            Action::CheckAgreement => {
+                if let Some(doc) = &self.doc {
+                    self.poses_panel.start_agreement(doc, self.repaint.clone());
+                    self.settings.inspector_tab = InspectorTab::Poses;
+                }
+            }
+            Action::LeaveOutFrames(frames) => self.leave_out_frames(frames),
+            Action::Realign(frames) => {
+                if let Some(doc) = &self.doc {
+                    self.poses_panel
+                        .start_realign(doc, frames, self.repaint.clone());
+                    self.settings.inspector_tab = InspectorTab::Poses;
+                }
+            }
+            Action::StartFit => {
+                if let Some(doc) = &self.doc {
+                    self.poses_panel.start_fit(doc, self.repaint.clone());
+                }
+            }
+            Action::UseRealigned => {
+                let Some(session) = self
+                    .doc
+                    .as_ref()
+                    .and_then(|d| self.poses_panel.realigned_session(d))
+                else {
+                    return self.problem("the re-alignment is out of date; run it again".into());
+                };
+                if self.edit_session(session) {
+                    self.poses_panel.realigned = None;
+                    self.info("re-aligned poses in use; File > Save run as... keeps them".into());
+                }
+            }
+            Action::DiscardRealigned => self.poses_panel.realigned = None,
+            Action::SaveSession { path, packed } => self.save_session(&path, packed),
             Action::ShowTab(t) => self.settings.inspector_tab = t,
             Action::Ask(d) => self.dialog = Some(d),
             Action::Confirmed(a) => self.apply(Action::Confirmed(a)),
@@ -230,6 +296,7 @@ impl GridscopeApp {
             {
                 Some(format!("{} exists. Replace it?", p.display()))
             }
+            // A run is never saved over a file (see `Session::save_as`): no question to ask.
             Action::ExportBundle { prefix, .. } => {
                 let prefix = crate::export::bundle_prefix(prefix);
                 let there: Vec<String> = [".npy", ".png", ".map.ron", ".pgm"]
@@ -251,6 +318,9 @@ impl GridscopeApp {
         if self.doc.as_ref().is_some_and(|d| d.unsaved()) {
             lost.push("unsaved parameter changes");
         }
+        if self.doc.as_ref().is_some_and(|d| d.run_unsaved()) {
+            lost.push("re-aligned poses not saved");
+        }
         if self.pinned.is_some() {
             lost.push("the pinned parameters A");
         }
@@ -271,15 +341,39 @@ impl GridscopeApp {
         lost
     }
 
-    /// Applies parameters as an edit the user can undo. Returns whether they were taken.
-    pub fn edit_params(&mut self, params: Params) -> bool {
-        let Some(before) = self.doc.as_ref().map(|d| d.params.clone()) else {
-            return self.set_params(params);
+    /// The document's current version, if a session is open.
+    fn version(&self) -> Option<Version> {
+        self.doc.as_ref().map(|d| Version {
+            params: d.params.clone(),
+            session: d.session.clone(),
+        })
+    }
+
+    /// Makes `v` current: its run (if it is another) and its parameters. Returns whether it
+    /// was taken; nothing changes when its parameters are refused.
+    fn set_version(&mut self, v: Version) -> bool {
+        if let Err(e) = v.params.validate() {
+            self.problem(format!("parameters not applied: {e}"));
+            return false;
+        }
+        if let Some(doc) = &mut self.doc
+            && !Arc::ptr_eq(&doc.session, &v.session)
+        {
+            doc.stats = v.session.stats();
+            doc.session = v.session;
+        }
+        self.set_params(v.params)
+    }
+
+    /// Makes `next` current as an edit the user can undo. Returns whether it was taken.
+    fn edit(&mut self, next: Version) -> bool {
+        let Some(before) = self.version() else {
+            return self.set_params(next.params);
         };
-        if before == params {
+        if before.params == next.params && Arc::ptr_eq(&before.session, &next.session) {
             return true;
         }
-        if self.set_params(params) {
+        if self.set_version(next) {
             self.edits.undo.push(before);
             self.edits.redo.clear();
             true
@@ -288,13 +382,28 @@ impl GridscopeApp {
         }
     }
 
-    /// Goes back to the parameters before the last edit.
+    /// Applies parameters as an edit the user can undo. Returns whether they were taken.
+    pub fn edit_params(&mut self, params: Params) -> bool {
+        match self.version() {
+            Some(v) => self.edit(Version { params, ..v }),
+            None => self.set_params(params),
+        }
+    }
+
+    /// Replaces the open run (same frames, other poses) as an edit the user can undo.
+    pub fn edit_session(&mut self, session: Arc<Session>) -> bool {
+        match self.version() {
+            Some(v) => self.edit(Version { session, ..v }),
+            None => false,
+        }
+    }
+
+    /// Goes back to the version before the last edit.
     pub fn undo(&mut self) {
-        let (Some(p), Some(now)) = (self.edits.undo.pop(), self.doc.as_ref()) else {
+        let (Some(v), Some(now)) = (self.edits.undo.pop(), self.version()) else {
             return;
         };
-        let now = now.params.clone();
-        if self.set_params(p) {
+        if self.set_version(v) {
             self.edits.redo.push(now);
             self.info("undone".into());
         }
@@ -302,13 +411,26 @@ impl GridscopeApp {
 
     /// Applies the edit undone last again.
     pub fn redo(&mut self) {
-        let (Some(p), Some(now)) = (self.edits.redo.pop(), self.doc.as_ref()) else {
+        let (Some(v), Some(now)) = (self.edits.redo.pop(), self.version()) else {
             return;
         };
-        let now = now.params.clone();
-        if self.set_params(p) {
+        if self.set_version(v) {
             self.edits.undo.push(now);
             self.info("redone".into());
+        }
+    }
+
+    /// Leaves frames out of the fusion (an undoable edit of the parameters' exclusions).
+    fn leave_out_frames(&mut self, frames: Range<usize>) {
+        let Some(doc) = &self.doc else { return };
+        if frames.is_empty() {
+            return;
+        }
+        let entry = frames.start..=frames.end - 1;
+        let mut p = doc.params.clone();
+        if !p.exclude.frames.contains(&entry) {
+            p.exclude.frames.push(entry);
+            self.edit_params(p);
         }
     }
 

@@ -28,7 +28,7 @@ pub enum Dialog {
     },
     /// The keyboard shortcuts.
     Shortcuts,
-    /// The window is closing with unsaved parameters.
+    /// The window is closing with unsaved parameters or re-aligned poses.
     CloseUnsaved,
 }
 
@@ -48,7 +48,10 @@ pub const SHORTCUTS: &[(&str, &str)] = &[
     ("Ctrl+S", "save the parameters"),
     ("Ctrl+E", "export the map bundle"),
     ("Ctrl+Shift+E", "export the view as PNG"),
-    ("Ctrl+Z", "undo a parameter edit"),
+    (
+        "Ctrl+Z",
+        "undo an edit (parameters, frames left out, poses)",
+    ),
     ("Ctrl+Shift+Z or Ctrl+Y", "redo"),
     ("Ctrl+G", "go to a frame"),
     ("Ctrl+L", "go to a point (x, y)"),
@@ -69,7 +72,8 @@ pub enum Answer {
     Close,
     /// Close it and carry out this action.
     Do(Box<Action>),
-    /// Save the parameters before closing the window (the unsaved-changes question).
+    /// Save the parameters and the run before closing the window (the unsaved-changes
+    /// question).
     SaveAndClose,
     /// Close the window without saving.
     CloseWindow,
@@ -83,7 +87,7 @@ pub fn dialog_ui(ctx: &egui::Context, dialog: &mut Dialog, last_frame: usize) ->
         Dialog::GoToFrame { .. } => "Go to frame",
         Dialog::GoToPoint { .. } => "Go to point",
         Dialog::Shortcuts => "Keyboard shortcuts",
-        Dialog::CloseUnsaved => "Unsaved parameters",
+        Dialog::CloseUnsaved => "Unsaved work",
     };
     let mut open = true;
     egui::Window::new(title)
@@ -149,7 +153,9 @@ pub fn dialog_ui(ctx: &egui::Context, dialog: &mut Dialog, last_frame: usize) ->
                 });
             }
             Dialog::CloseUnsaved => {
-                ui.label("The parameters have changes that are not saved.");
+                ui.label(
+                    "The parameters or the run's re-aligned poses have changes that are not saved.",
+                );
                 ui.horizontal(|ui| {
                     if ui.button("Save, then close").clicked() {
                         answer = Answer::SaveAndClose;

@@ -1,5 +1,6 @@
 //! The document: the loaded session with the parameters applied to it, and every file the
-//! window reads or writes (sessions, plans, profiles, references, map bundles, histories).
+//! window reads or writes (sessions, plans, profiles, references, map bundles, histories, runs
+//! saved with re-aligned poses).
 //!
 //! Design decision: every read and write runs as a background task with a label for the status
 //! line; a UI frame only starts tasks and applies finished ones. A task that fails or panics
@@ -41,8 +42,10 @@ impl Source {
 pub struct Document {
     /// Where it came from.
     pub source: Source,
-    /// The session.
+    /// The session (its poses re-aligned, if the user chose so).
     pub session: Arc<Session>,
+    /// The session as last opened or saved (for the "unsaved" mark of re-aligned poses).
+    pub saved_session: Arc<Session>,
     /// Its counts.
     pub stats: SessionStats,
     /// The parameters asked for (always valid); their builder may still be in the making.
@@ -63,6 +66,11 @@ impl Document {
     /// Whether the parameters differ from the ones last loaded or saved.
     pub fn unsaved(&self) -> bool {
         self.params != self.saved_params
+    }
+
+    /// Whether the run's poses were replaced since it was opened or saved.
+    pub fn run_unsaved(&self) -> bool {
+        !Arc::ptr_eq(&self.session, &self.saved_session)
     }
 }
 
@@ -111,6 +119,8 @@ pub enum Outcome {
     Reference(String, Grid),
     /// Parameters were saved to a file.
     SavedParams(Params, PathBuf),
+    /// The run was saved as a new session file (the file, the run saved, the files written).
+    SavedSession(PathBuf, Arc<Session>, usize),
     /// Something was written; the message says what.
     Wrote(String),
 }
@@ -227,6 +237,20 @@ impl GridscopeApp {
                 super::settings::remember(&mut self.settings.recent_params, &path);
                 self.info(format!("saved parameters to {}", path.display()));
             }
+            Outcome::SavedSession(path, session, files) => {
+                if let Some(d) = &mut self.doc
+                    && Arc::ptr_eq(&d.session, &session)
+                {
+                    d.saved_session = session;
+                    d.source = Source::File(path.clone());
+                }
+                super::settings::remember(&mut self.settings.recent_sessions, &path);
+                self.info(format!(
+                    "saved the run to {} ({files} file{})",
+                    path.display(),
+                    if files == 1 { "" } else { "s" }
+                ));
+            }
             Outcome::Wrote(message) => self.info(message),
         }
     }
@@ -304,6 +328,7 @@ impl GridscopeApp {
         self.doc = Some(Document {
             stats,
             source: source.clone(),
+            saved_session: session.clone(),
             session,
             saved_params: params.clone(),
             params,
@@ -327,6 +352,7 @@ impl GridscopeApp {
         self.reference = None;
         self.changes_panel = Default::default();
         self.sweep_panel = Default::default();
+        self.poses_panel.reset();
         self.edits = Default::default();
         if let Source::Demo(name) = source {
             self.use_demo_reference(name);
@@ -388,6 +414,24 @@ impl GridscopeApp {
             write_all_atomically(&[(path.clone(), params.to_ron_string().into_bytes())])
                 .map_err(|e| e.to_string())?;
             Ok(Outcome::SavedParams(params, path))
+        });
+    }
+
+    /// Saves the open run, with its poses as they are now, as a new session file in the
+    /// background: never over the file it came from nor over any existing file.
+    pub fn save_session(&mut self, path: &Path, packed: bool) {
+        let Some(doc) = &self.doc else { return };
+        let session = doc.session.clone();
+        let input = match &doc.source {
+            Source::File(p) => Some(p.clone()),
+            Source::Demo(_) => None,
+        };
+        let path = path.to_path_buf();
+        self.start_task(format!("saving {}", path.display()), move || {
+            let files = session
+                .save_as(&path, packed, input.as_deref())
+                .map_err(|e| e.to_string())?;
+            Ok(Outcome::SavedSession(path, session, files.len()))
         });
     }
 

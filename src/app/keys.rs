@@ -1,5 +1,5 @@
-//! The window's shell: keyboard shortcuts, the title (with the unsaved mark) and the question
-//! asked when the window is closed with unsaved parameters.
+//! The window's shell: keyboard shortcuts, the title (with the unsaved marks) and the question
+//! asked when the window is closed with unsaved parameters or re-aligned poses.
 
 use super::dialogs::Dialog;
 use super::{Action, GridscopeApp, menu};
@@ -66,25 +66,59 @@ impl GridscopeApp {
         out
     }
 
-    /// Asks before the window closes with unsaved parameters.
+    /// Asks before the window closes with unsaved parameters or re-aligned poses.
     pub(super) fn close_request(&mut self, ctx: &egui::Context) {
         if ctx.input(|i| i.viewport().close_requested())
             && !self.allow_close
-            && self.doc.as_ref().is_some_and(|d| d.unsaved())
+            && self
+                .doc
+                .as_ref()
+                .is_some_and(|d| d.unsaved() || d.run_unsaved())
         {
             ctx.send_viewport_cmd(egui::ViewportCommand::CancelClose);
             self.dialog = Some(Dialog::CloseUnsaved);
         }
     }
 
-    /// The window's title: the session, and a mark while parameters are unsaved.
+    /// Opens the save prompt for the next unsaved thing (the parameters, then the run) and
+    /// closes the window once nothing is left unsaved.
+    pub(super) fn save_before_closing(&mut self, ctx: &egui::Context) {
+        let next = self.doc.as_ref().and_then(|d| {
+            if d.unsaved() {
+                Some(super::menu::Purpose::SaveParams)
+            } else if d.run_unsaved() {
+                Some(super::menu::Purpose::SaveSession)
+            } else {
+                None
+            }
+        });
+        match next {
+            Some(purpose) => {
+                self.file_menu.open_prompt(purpose, self.doc.as_ref());
+                self.file_menu.close_after_save = Some(purpose);
+            }
+            None => {
+                self.file_menu.close_after_save = None;
+                self.allow_close = true;
+                ctx.send_viewport_cmd(egui::ViewportCommand::Close);
+            }
+        }
+    }
+
+    /// The window's title: the session, and a mark while parameters or re-aligned poses are
+    /// unsaved.
     pub(super) fn window_title(&mut self, ctx: &egui::Context) {
         let title = match &self.doc {
             Some(d) => format!(
-                "gridscope - {}{}",
+                "gridscope - {}{}{}",
                 d.session.name,
                 if d.unsaved() {
                     " (parameters not saved)"
+                } else {
+                    ""
+                },
+                if d.run_unsaved() {
+                    " (poses not saved)"
                 } else {
                     ""
                 }

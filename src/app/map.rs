@@ -137,6 +137,7 @@ impl GridscopeApp {
         self.changes_panel.wait();
         self.compare_panel.wait();
         self.score_panel.wait();
+        self.poses_panel.wait();
         if let Some(doc) = &self.doc {
             let base = doc.params.clone();
             self.sweep_panel.wait(&base);

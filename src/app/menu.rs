@@ -25,6 +25,8 @@ pub enum Purpose {
     ExportBundle,
     /// Save the view as PNG.
     ExportView,
+    /// Save the run (with re-aligned poses) as a new session file.
+    SaveSession,
 }
 
 impl Purpose {
@@ -34,15 +36,23 @@ impl Purpose {
             Purpose::SaveParams => "Save parameters",
             Purpose::ExportBundle => "Export map bundle (prefix: writes .npy .png .map.ron)",
             Purpose::ExportView => "Save the view as PNG",
+            Purpose::SaveSession => "Save the run as a new session file",
         }
     }
 
-    fn action(self, path: PathBuf, pgm: bool) -> Action {
+    fn action(self, path: PathBuf, option: bool) -> Action {
         match self {
             Purpose::Open => Action::OpenAny(path),
             Purpose::SaveParams => Action::SaveParams(path),
-            Purpose::ExportBundle => Action::ExportBundle { prefix: path, pgm },
+            Purpose::ExportBundle => Action::ExportBundle {
+                prefix: path,
+                pgm: option,
+            },
             Purpose::ExportView => Action::ExportView(path),
+            Purpose::SaveSession => Action::SaveSession {
+                path,
+                packed: option,
+            },
         }
     }
 }
@@ -54,8 +64,9 @@ pub struct Prompt {
     pub purpose: Purpose,
     /// The path typed so far.
     pub text: String,
-    /// Export only: also write a Netpbm `.pgm`.
-    pub pgm: bool,
+    /// The purpose's one option: for an export, also write a Netpbm `.pgm`; for a saved run,
+    /// the packed layout.
+    pub option: bool,
 }
 
 /// Menu state.
@@ -63,8 +74,9 @@ pub struct Prompt {
 pub struct FileMenu {
     /// The open prompt, if any.
     pub prompt: Option<Prompt>,
-    /// Close the window once the parameters are saved (the answer to the unsaved question).
-    pub close_after_save: bool,
+    /// Close the window once what is unsaved is saved (the answer to the unsaved question):
+    /// the purpose of the prompt opened for it.
+    pub close_after_save: Option<Purpose>,
 }
 
 fn default_stem(doc: Option<&Document>) -> String {
@@ -94,11 +106,12 @@ impl FileMenu {
                 .unwrap_or(format!("{stem}.params.ron")),
             Purpose::ExportBundle => stem,
             Purpose::ExportView => format!("{stem}.view.png"),
+            Purpose::SaveSession => format!("{stem}-realigned.session.ron"),
         };
         self.prompt = Some(Prompt {
             purpose,
             text,
-            pgm: false,
+            option: false,
         });
     }
 
@@ -142,6 +155,9 @@ impl FileMenu {
                 if ui.add_enabled(loaded, egui::Button::new("Save parameters...").shortcut_text("Ctrl+S")).clicked() {
                     self.open_prompt(Purpose::SaveParams, doc);
                 }
+                if ui.add_enabled(loaded, egui::Button::new("Save run as...")).on_hover_text("The open run with its poses as they are now (re-aligned in the Poses tab), as a new session file").clicked() {
+                    self.open_prompt(Purpose::SaveSession, doc);
+                }
                 if ui.add_enabled(loaded, egui::Button::new("Export map bundle...").shortcut_text("Ctrl+E")).on_hover_text("The grid after the current frame, with the parameters that made it").clicked() {
                     self.open_prompt(Purpose::ExportBundle, doc);
                 }
@@ -151,7 +167,8 @@ impl FileMenu {
             });
             ui.menu_button("Edit", |ui| {
                 if ui
-                    .add_enabled(edits.can_undo(), egui::Button::new("Undo parameter edit").shortcut_text("Ctrl+Z"))
+                    .add_enabled(edits.can_undo(), egui::Button::new("Undo").shortcut_text("Ctrl+Z"))
+                    .on_hover_text("Parameter edits, frames or beams left out, re-aligned poses")
                     .clicked()
                 {
                     actions.push(Action::Undo);
@@ -226,7 +243,7 @@ impl FileMenu {
                         done = Some(Some(
                             prompt
                                 .purpose
-                                .action(PathBuf::from(prompt.text.trim()), prompt.pgm),
+                                .action(PathBuf::from(prompt.text.trim()), prompt.option),
                         ));
                     }
                     if ui
@@ -246,11 +263,21 @@ impl FileMenu {
                         }
                     }
                 });
-                if prompt.purpose == Purpose::ExportBundle {
-                    ui.checkbox(
-                        &mut prompt.pgm,
-                        "also write a Netpbm .pgm of the grey levels",
-                    );
+                match prompt.purpose {
+                    Purpose::ExportBundle => {
+                        ui.checkbox(
+                            &mut prompt.option,
+                            "also write a Netpbm .pgm of the grey levels",
+                        );
+                    }
+                    Purpose::SaveSession => {
+                        ui.checkbox(
+                            &mut prompt.option,
+                            "packed: arrays in .npy files beside the header",
+                        );
+                        ui.label("A run is saved under a new name, never over a file.");
+                    }
+                    _ => {}
                 }
                 ui.horizontal(|ui| {
                     let ok = !prompt.text.trim().is_empty();
@@ -258,7 +285,7 @@ impl FileMenu {
                         done = Some(Some(
                             prompt
                                 .purpose
-                                .action(PathBuf::from(prompt.text.trim()), prompt.pgm),
+                                .action(PathBuf::from(prompt.text.trim()), prompt.option),
                         ));
                     }
                     if ui.button("Cancel").clicked() {

@@ -23,6 +23,7 @@ mod menu;
 mod overlay;
 pub mod palette;
 mod pictures;
+mod poses_panel;
 mod render;
 mod score_panel;
 pub mod settings;
@@ -41,6 +42,7 @@ pub use dialogs::{Dialog, SHORTCUTS};
 pub use document::{Document, Restore, Shown, Source};
 pub use grid_view::{GridView, Measure, ViewTransform};
 pub use menu::FileMenu;
+pub use poses_panel::PosesPanel;
 pub use score_panel::{Reference, ScorePanel};
 pub use settings::{InspectorTab, LastSession, Settings};
 pub use sweep_panel::SweepPanel;
@@ -131,6 +133,8 @@ pub struct GridscopeApp {
     pub sweep_panel: SweepPanel,
     /// The change finder.
     pub changes_panel: ChangesPanel,
+    /// Agreement, mount and clock, re-alignment.
+    pub poses_panel: PosesPanel,
     /// Pinned parameters (A) and their map.
     pub pinned: Option<Pinned>,
     /// What the map shows.
@@ -186,6 +190,7 @@ impl GridscopeApp {
             score_panel: ScorePanel::default(),
             sweep_panel: SweepPanel::default(),
             changes_panel: ChangesPanel::default(),
+            poses_panel: PosesPanel::default(),
             pinned: None,
             layer: Layer::Current,
             reference: None,
@@ -315,11 +320,13 @@ impl GridscopeApp {
         });
         if let Some(doc) = &self.doc {
             egui::Panel::bottom("timeline").show(ui, |ui| {
+                self.poses_panel.poll();
                 actions.extend(self.timeline.ui(
                     ui,
                     doc,
                     self.frame,
                     &mut self.settings.play_speed,
+                    self.poses_panel.strip(doc),
                 ));
             });
         }
@@ -375,9 +382,7 @@ impl GridscopeApp {
                 }
                 Answer::SaveAndClose => {
                     self.dialog = None;
-                    self.file_menu
-                        .open_prompt(menu::Purpose::SaveParams, self.doc.as_ref());
-                    self.file_menu.close_after_save = true;
+                    self.save_before_closing(&ctx);
                 }
                 Answer::CloseWindow => {
                     self.dialog = None;
@@ -389,22 +394,31 @@ impl GridscopeApp {
         for a in actions {
             self.apply(a);
         }
-        if self.file_menu.close_after_save
+        if let Some(purpose) = self.file_menu.close_after_save
             && self.tasks.is_empty()
-            && self.doc.as_ref().is_some_and(|d| !d.unsaved())
+            && self.file_menu.prompt.is_none()
         {
-            self.allow_close = true;
-            ctx.send_viewport_cmd(egui::ViewportCommand::Close);
+            let still = self.doc.as_ref().is_some_and(|d| match purpose {
+                menu::Purpose::SaveSession => d.run_unsaved(),
+                _ => d.unsaved(),
+            });
+            if still {
+                // Cancelled, or the save failed (the status line says why): stay open.
+                self.file_menu.close_after_save = None;
+            } else {
+                self.save_before_closing(&ctx);
+            }
         }
         let waiting = self.worker.busy()
             || !self.tasks.is_empty()
-            || self.pinned.as_ref().is_some_and(|p| p.busy());
+            || self.pinned.as_ref().is_some_and(|p| p.busy())
+            || self.poses_panel.busy();
         if waiting {
             ctx.request_repaint_after(Duration::from_millis(100));
         }
     }
 
-    /// The right-hand inspector: tabs for beam, cell, compare, score, sweep and changes.
+    /// The right-hand inspector: tabs for beam, cell, compare, score, sweep, changes and poses.
     fn inspector_ui(&mut self, ui: &mut egui::Ui, records: &[TouchRecord]) -> Vec<Action> {
         let mut actions = Vec::new();
         let Some(doc) = &self.doc else { return actions };
@@ -459,6 +473,7 @@ impl GridscopeApp {
                 );
             }
             InspectorTab::Changes => actions.extend(self.changes_panel.ui(ui, doc, self.frame)),
+            InspectorTab::Poses => actions.extend(self.poses_panel.ui(ui, doc)),
         }
         actions
     }

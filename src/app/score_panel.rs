@@ -146,8 +146,14 @@ impl ScorePanel {
         None
     }
 
-    /// Waits for the scores being computed (tests only).
+    /// Waits for the scores and the image preview being computed (tests only).
     pub fn wait(&mut self) {
+        if let Some((s, job)) = self.image.preview_job.take() {
+            let result = job
+                .wait()
+                .unwrap_or_else(|failure| Err(format!("the preview {failure}")));
+            self.image.preview = Some((s, result));
+        }
         for (key, job) in std::mem::take(&mut self.jobs) {
             let s = job.wait().unwrap_or_else(|f| Err(format!("the score {f}")));
             self.cached.retain(|(k, _)| k.2 != key.2);

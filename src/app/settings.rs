@@ -29,17 +29,20 @@ pub enum InspectorTab {
     Sweep,
     /// Cells that changed class.
     Changes,
+    /// Agreement per frame, mount and clock, re-alignment.
+    Poses,
 }
 
 impl InspectorTab {
     /// All tabs, in display order.
-    pub const ALL: [InspectorTab; 6] = [
+    pub const ALL: [InspectorTab; 7] = [
         InspectorTab::Beam,
         InspectorTab::Cell,
         InspectorTab::Compare,
         InspectorTab::Score,
         InspectorTab::Sweep,
         InspectorTab::Changes,
+        InspectorTab::Poses,
     ];
 
     /// The tab's title.
@@ -51,6 +54,7 @@ impl InspectorTab {
             InspectorTab::Score => "Score",
             InspectorTab::Sweep => "Sweep",
             InspectorTab::Changes => "Changes",
+            InspectorTab::Poses => "Poses",
         }
     }
 }

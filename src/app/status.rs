@@ -51,6 +51,11 @@ pub fn status_ui(ui: &mut egui::Ui, app: &GridscopeApp) {
                         .on_hover_text("The parameters differ from the ones last opened or saved (File > Save parameters)");
                     ui.separator();
                 }
+                if doc.run_unsaved() {
+                    ui.label(RichText::new("poses not saved").color(Color32::from_rgb(240, 200, 90)))
+                        .on_hover_text("Re-aligned poses are in use but not in a file (File > Save run as...)");
+                    ui.separator();
+                }
                 if app.progress().is_some() || app.worker_busy() {
                     let (done, total) = app.progress().unwrap_or((0, 1));
                     let fraction = if total > 0 {

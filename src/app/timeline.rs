@@ -1,8 +1,10 @@
-//! The timeline: frame slider, stepping, playback and marks where frames hold invalid readings.
+//! The timeline: frame slider, stepping, playback, marks where frames hold invalid readings or
+//! are left out, and (once checked) each frame's agreement as a strip, low frames in amber.
 //!
 //! Playback follows the session's own clock scaled by the speed: each UI frame asks for the
 //! last frame whose time has passed, so a slow rebuild skips frames instead of lagging behind.
 
+use super::poses_panel::Strip;
 use super::{Action, Document};
 use egui::{Color32, Key, Modifiers, Sense, Stroke, pos2, vec2};
 
@@ -32,6 +34,7 @@ impl Timeline {
         doc: &Document,
         frame: usize,
         speed: &mut f32,
+        agreement: Option<Strip<'_>>,
     ) -> Vec<Action> {
         let frames = &doc.session.frames;
         let n = frames.len();
@@ -173,6 +176,11 @@ impl Timeline {
             [pos2(x, strip.top() - 1.0), pos2(x, strip.bottom() + 1.0)],
             Stroke::new(2.0, Color32::WHITE),
         );
+        if let Some(s) = agreement
+            && let Some(f) = agreement_strip(ui, &s, frame)
+        {
+            target = Some(f.min(last));
+        }
         ui.add_space(2.0);
 
         // Playback, unless the user moved the frame by hand in this UI frame.
@@ -203,4 +211,72 @@ impl Timeline {
             .into_iter()
             .collect()
     }
+}
+
+/// Height of the agreement strip, points.
+const STRIP_HEIGHT: f32 = 26.0;
+
+/// Draws each frame's agreement as a column (the lowest of the frames that share a column, so
+/// a short dip stays visible on a long run), amber below the cut, with the cut as a line;
+/// returns the frame clicked.
+fn agreement_strip(ui: &mut egui::Ui, s: &Strip<'_>, frame: usize) -> Option<usize> {
+    let n = s.values.len();
+    if n == 0 {
+        return None;
+    }
+    let (rect, response) = ui.allocate_exact_size(
+        vec2(ui.spacing().slider_width, STRIP_HEIGHT),
+        Sense::click(),
+    );
+    let painter = ui.painter_at(rect.expand(1.0));
+    painter.rect_filled(rect, 0.0, Color32::from_gray(28));
+    let fade = |c: Color32| if s.stale { c.gamma_multiply(0.45) } else { c };
+    let y_of = |a: f64| rect.bottom() - rect.height() * a.clamp(0.0, 1.0) as f32;
+    let columns = rect.width().max(1.0) as usize;
+    for col in 0..columns {
+        let a = col * n / columns;
+        let b = ((col + 1) * n / columns).max(a + 1).min(n);
+        let Some(low) = s.values[a..b].iter().flatten().copied().reduce(f64::min) else {
+            continue;
+        };
+        let colour = if low < s.cut {
+            Color32::from_rgb(235, 165, 40)
+        } else {
+            Color32::from_rgb(90, 170, 160)
+        };
+        let x = rect.left() + col as f32 + 0.5;
+        painter.line_segment(
+            [pos2(x, rect.bottom()), pos2(x, y_of(low))],
+            Stroke::new(1.0, fade(colour)),
+        );
+    }
+    let y = y_of(s.cut);
+    painter.line_segment(
+        [pos2(rect.left(), y), pos2(rect.right(), y)],
+        Stroke::new(1.0, fade(Color32::from_gray(170))),
+    );
+    let x = rect.left() + rect.width() * (frame as f32 + 0.5) / n as f32;
+    painter.line_segment(
+        [pos2(x, rect.top()), pos2(x, rect.bottom())],
+        Stroke::new(1.0, Color32::WHITE),
+    );
+    let at = |p: egui::Pos2| (((p.x - rect.left()) / rect.width()) * n as f32).max(0.0) as usize;
+    let response = response.on_hover_ui_at_pointer(|ui| {
+        if let Some(p) = ui.ctx().pointer_hover_pos() {
+            let f = at(p).min(n - 1);
+            let v = s.values[f].map_or("none".into(), |v| format!("{v:.3}"));
+            ui.label(format!(
+                "frame {f}: agreement {v}{}\nclick to go there",
+                if s.stale {
+                    " (parameters changed since)"
+                } else {
+                    ""
+                }
+            ));
+        }
+    });
+    if response.clicked() {
+        return response.interact_pointer_pos().map(|p| at(p).min(n - 1));
+    }
+    None
 }

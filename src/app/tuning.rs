@@ -116,7 +116,7 @@ fn number(
 }
 
 /// A slider for one tunable of the registry, labelled `label`. Returns whether it changed.
-fn tunable_ui(ui: &mut egui::Ui, t: &Tunable, draft: &mut Params, label: &str) -> bool {
+pub(super) fn tunable_ui(ui: &mut egui::Ui, t: &Tunable, draft: &mut Params, label: &str) -> bool {
     let Some(mut v) = t.get(draft) else {
         return false;
     };

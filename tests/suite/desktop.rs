@@ -148,7 +148,7 @@ fn parameter_edits_undo_and_redo() {
     assert_eq!(excluded, &vec![(frame, "lidar".to_string(), 7)]);
     h.get_by_label("Edit").click();
     h.run_steps(2);
-    h.get_by_label_contains("Undo parameter edit").click();
+    h.get_by_label_contains("Undo").click();
     settle(&mut h);
     assert_eq!(h.state().doc.as_ref().unwrap().params, edited);
 }

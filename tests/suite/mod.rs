@@ -7,6 +7,7 @@ mod hostile;
 mod independent;
 mod mutation;
 mod parallel;
+mod poses_window;
 mod samples;
 mod window;
 

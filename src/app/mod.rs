@@ -4,7 +4,7 @@
 //! replays the session; file reads and writes, scores, histories, searches and sweeps run as
 //! background jobs; pictures of the grid are made by a render thread. A frame drains what they
 //! finished, draws the panels, and applies the [`Action`]s the panels returned
-//! ([`actions`]); the document's files are handled in [`document`].
+//! (in `actions.rs`); the document's files are handled in `document.rs`.
 
 mod actions;
 mod beam_panel;

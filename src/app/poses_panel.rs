@@ -288,9 +288,13 @@ impl PosesPanel {
         }
         let overall = c.run.overall().map_or("none".into(), |a| format!("{a:.3}"));
         match c.typical {
+            Some(t) if t.cut > 0.0 => ui.label(format!(
+                "run {overall}, median {:.3}, spread {:.3}; frames below {:.3} are low",
+                t.median, t.spread, t.cut
+            )),
             Some(t) => ui.label(format!(
-                "run {overall}, median {:.3}; frames below {:.3} are low",
-                t.median, t.cut
+                "run {overall}, median {:.3}, spread {:.3}: frames scatter too widely for a                  stretch to stand out. A whole run that agrees poorly points at the mount or                  the clock: fit them below, then check again.",
+                t.median, t.spread
             )),
             None => ui.label("no frame has readings the maps can judge"),
         };

@@ -13,6 +13,10 @@
 //! independent one-thread rebuilds as there are threads, run at once (`copies_speedup`), and
 //! the speedup's share of that (`split_efficiency`): the first is the machine's, the second the
 //! parallel split's; and the quartiles of the repetitions' speedups, to show their spread.
+//! The speedup is also measured at each power of two below the thread count
+//! (`speedup_N`), and `bound_speedup_N` tells what the parallel schedule would allow on N free
+//! cores: every task of a rebuild timed on one worker, then replayed on N (see
+//! `fusion::fast::schedule`), so that a design can be judged on a machine with fewer cores.
 //! Speed targets belong here, never in tests.
 
 use crate::diagnose::{self, CalibrationField};
@@ -253,6 +257,30 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
         .zip(par_grid.values())
         .all(|(a, b)| a.to_bits() == b.to_bits());
 
+    // The speedup at fewer threads (powers of two), each paired with one-thread rebuilds.
+    let mut speedup_at_count = Vec::new();
+    let mut k = 2;
+    while k < threads {
+        let p = pool(k)?;
+        let ratios: Vec<f64> = (0..opts.reps.div_ceil(3).max(1))
+            .map(|_| {
+                let one_s = time(1, || {
+                    black_box(one.install(|| builder.build(n)));
+                });
+                one_s
+                    / time(1, || {
+                        black_box(p.install(|| builder.build(n)));
+                    })
+            })
+            .collect();
+        speedup_at_count.push((k, median(ratios)));
+        k *= 2;
+    }
+    speedup_at_count.push((threads, speedup));
+    say("timing the parallel schedule's tasks on one worker");
+    let bound_counts = [2, 4, 8, 16, 32];
+    let schedule = one.install(|| builder.schedule_times(&bound_counts));
+
     say("seeking");
     let mut replay = Replay::new(builder.clone(), DEFAULT_SNAPSHOT_BUDGET);
     let never = AtomicBool::new(false);
@@ -338,6 +366,20 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     put("split_efficiency", format!("{efficiency:.3}"));
     put("speedup_q1", format!("{speedup_q1:.3}"));
     put("speedup_q3", format!("{speedup_q3:.3}"));
+    for (k, v) in &speedup_at_count {
+        put(&format!("speedup_{k}"), format!("{v:.3}"));
+    }
+    // Over the one-thread rebuild (which prepares each frame's beams while they are in cache,
+    // and so runs faster than the schedule's tasks on one worker, also given).
+    for (k, (_, makespan)) in bound_counts.iter().zip(&schedule) {
+        put(
+            &format!("bound_speedup_{k}"),
+            format!("{:.2}", seq_s / makespan),
+        );
+    }
+    for (k, (total, _)) in bound_counts.iter().zip(&schedule) {
+        put(&format!("schedule_one_worker_s_{k}"), format!("{total:.3}"));
+    }
     put("seq_rebuild_s", format!("{seq_s:.3}"));
     put("par_rebuild_s", format!("{par_s:.3}"));
     put("snapshot_interval", replay.interval().to_string());

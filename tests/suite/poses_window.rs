@@ -57,7 +57,8 @@ fn a_fit_applies_the_plans_mount_and_clock_and_the_slip_is_realigned_undone_and_
         assert_eq!(checked.run.values(), core.values());
         assert!(app.poses_panel.strip(doc).is_some());
     }
-    assert!(h.query_by_label_contains("frames below").is_some());
+    // Before the fit the whole run agrees poorly and widely: the tab says to fit first.
+    assert!(h.query_by_label_contains("scatter too widely").is_some());
 
     // The fit (mount yaw and clock, the tab's default choice) finds the plan's faults within
     // a quarter degree and 10 ms; applying it is an edit of the parameters.

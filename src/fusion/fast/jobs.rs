@@ -2,7 +2,6 @@
 //! walk, the offsets to cell centres, where its free zone ends) and the [`Span`] of tiles it
 //! can reach, so tiles only look at the beams that concern them.
 
-use super::TILE;
 use crate::footprint::{RayWalk, param};
 use crate::fusion::MapBuilder;
 use crate::fusion::setup::CentreOffsets;
@@ -62,14 +61,14 @@ impl Span {
         ty1: 0,
     };
 
-    /// The tiles holding cells `a..=b` (corners, inclusive) of a `w` x `h` grid.
+    /// The tiles holding cells `a..=b` (corners, inclusive) of a `w` x `h` grid, in tiles of
+    /// 2^`shift` cells a side.
     #[inline(always)]
-    pub(super) fn of_cells(a: CellIndex, b: CellIndex, w: i64, h: i64) -> Span {
+    pub(super) fn of_cells(a: CellIndex, b: CellIndex, w: i64, h: i64, shift: u32) -> Span {
         if b.col < 0 || b.row < 0 || a.col >= w || a.row >= h {
             return Span::EMPTY;
         }
-        // Tile coordinates are cell coordinates shifted right (TILE is a power of two).
-        let shift = TILE.trailing_zeros();
+        // Tile coordinates are cell coordinates shifted right (a tile's side is a power of two).
         Span {
             tx0: (a.col.max(0) >> shift) as u32,
             tx1: (b.col.min(w - 1) >> shift) as u32,
@@ -95,9 +94,15 @@ impl MapBuilder {
     }
 
     /// Writes the jobs of frame `f`, in the contract's order, to the front of `out` and the
-    /// tiles they can reach to the front of `spans` (both at least
+    /// tiles (of 2^`shift` cells a side) they can reach to the front of `spans` (both at least
     /// [`MapBuilder::frame_slots`] long), and returns how many there are.
-    pub(super) fn fill_frame_jobs(&self, f: usize, out: &mut [Job], spans: &mut [Span]) -> usize {
+    pub(super) fn fill_frame_jobs(
+        &self,
+        f: usize,
+        out: &mut [Job],
+        spans: &mut [Span],
+        shift: u32,
+    ) -> usize {
         let mut n = 0;
         let spec = &self.spec;
         let res = spec.resolution;
@@ -116,6 +121,7 @@ impl MapBuilder {
                 ),
                 w,
                 h,
+                shift,
             )
         };
         self.for_each_included_beam(f, |b| {

@@ -7,40 +7,59 @@ use crate::diagnose::{self, RealignWindow};
 use crate::error::{Error, InputError, Problem};
 use crate::grid::DEFAULT_CELL_BUDGET;
 use crate::io::atomic::write_all_atomically;
+use crate::{MapBuilder, Params, Session};
 use std::io::Write;
 use std::ops::Range;
 use std::path::PathBuf;
 use std::sync::Arc;
 use std::sync::atomic::AtomicBool;
 
-/// Arguments of `gridscope agreement`.
+/// The run a diagnosis command reads: a session and the profile it is mapped with.
 #[derive(clap::Args, Clone, Debug)]
-pub struct AgreementArgs {
+pub struct RunArgs {
     /// Session file (`*.session.ron`), or `demo:NAME`.
     pub session: PathBuf,
-    /// Parameter profile (`*.params.ron`), or `demo:NAME`; defaults when omitted.
+    /// Parameter profile (`*.params.ron`), or `demo:NAME`; defaults when omitted (for
+    /// `calibrate`, its corrections are where the fit starts).
     #[arg(long)]
     pub params: Option<PathBuf>,
-    /// Write the CSV here and print a summary; without it the CSV goes to standard output.
-    #[arg(long)]
-    pub out: Option<PathBuf>,
     /// Refuse grids larger than this many cells.
     #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
     pub cell_budget: u64,
 }
 
+impl RunArgs {
+    /// The session, the profile and their builder (refused over the cell budget, blaming the
+    /// input that set the grid's size).
+    fn load(&self) -> Result<(Arc<Session>, Params, MapBuilder), Error> {
+        let session = Arc::new(load_session(&self.session)?);
+        let params = load_params(self.params.as_deref())?;
+        let builder = builder_for(
+            &session,
+            &params,
+            &self.session,
+            self.params.as_deref(),
+            self.cell_budget,
+        )?;
+        Ok((session, params, builder))
+    }
+}
+
+/// Arguments of `gridscope agreement`.
+#[derive(clap::Args, Clone, Debug)]
+pub struct AgreementArgs {
+    /// The run.
+    #[command(flatten)]
+    pub run: RunArgs,
+    /// Write the CSV here and print a summary; without it the CSV goes to standard output.
+    #[arg(long)]
+    pub out: Option<PathBuf>,
+}
+
 /// Prints or writes the agreement of every frame (CSV `frame,t,agreement,...`); with `--out`,
 /// prints the run's agreement and its suspect stretches.
 pub fn agreement(args: &AgreementArgs, out: &mut dyn Write) -> Result<(), Error> {
-    let session = Arc::new(load_session(&args.session)?);
-    let params = load_params(args.params.as_deref())?;
-    let builder = builder_for(
-        &session,
-        &params,
-        &args.session,
-        args.params.as_deref(),
-        args.cell_budget,
-    )?;
+    let (_, _, builder) = args.run.load()?;
     let run = diagnose::agreement(&builder, &AtomicBool::new(false), &mut |_| {})?;
     let csv = diagnose::agreement_csv(&run);
     let Some(path) = &args.out else {
@@ -72,11 +91,9 @@ pub fn agreement(args: &AgreementArgs, out: &mut dyn Write) -> Result<(), Error>
 /// Arguments of `gridscope calibrate`.
 #[derive(clap::Args, Clone, Debug)]
 pub struct CalibrateArgs {
-    /// Session file (`*.session.ron`), or `demo:NAME`.
-    pub session: PathBuf,
-    /// Parameter profile (`*.params.ron`), or `demo:NAME`; its corrections are the start.
-    #[arg(long)]
-    pub params: Option<PathBuf>,
+    /// The run.
+    #[command(flatten)]
+    pub run: RunArgs,
     /// The sensor's id.
     #[arg(long)]
     pub sensor: String,
@@ -86,9 +103,6 @@ pub struct CalibrateArgs {
     /// Write the profile with the fitted corrections here.
     #[arg(long, value_name = "FILE")]
     pub save: Option<PathBuf>,
-    /// Refuse grids larger than this many cells.
-    #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
-    pub cell_budget: u64,
 }
 
 /// Fits a sensor's corrections and prints `key=value` lines: the fitted absolute values
@@ -96,16 +110,7 @@ pub struct CalibrateArgs {
 /// agreement and sharpness before and after.
 pub fn calibrate(args: &CalibrateArgs, out: &mut dyn Write) -> Result<(), Error> {
     let fields = diagnose::parse_fields(&args.fit).map_err(|p| InputError::new("--fit", p))?;
-    let session = Arc::new(load_session(&args.session)?);
-    let params = load_params(args.params.as_deref())?;
-    // Checks the grid against the budget, blaming the right input.
-    builder_for(
-        &session,
-        &params,
-        &args.session,
-        args.params.as_deref(),
-        args.cell_budget,
-    )?;
+    let (session, params, _) = args.run.load()?;
     let fit = diagnose::calibrate(
         &session,
         &params,
@@ -142,11 +147,9 @@ pub fn calibrate(args: &CalibrateArgs, out: &mut dyn Write) -> Result<(), Error>
 /// Arguments of `gridscope realign`.
 #[derive(clap::Args, Clone, Debug)]
 pub struct RealignArgs {
-    /// Session file (`*.session.ron`), or `demo:NAME`.
-    pub session: PathBuf,
-    /// Parameter profile (`*.params.ron`), or `demo:NAME`; defaults when omitted.
-    #[arg(long)]
-    pub params: Option<PathBuf>,
+    /// The run.
+    #[command(flatten)]
+    pub run: RunArgs,
     /// The stretch, `FIRST..END` (END not included), as `agreement` prints suspects.
     #[arg(long, value_name = "FIRST..END")]
     pub frames: String,
@@ -162,9 +165,6 @@ pub struct RealignArgs {
     /// Write the new session in the packed layout (arrays beside the header).
     #[arg(long)]
     pub packed: bool,
-    /// Refuse grids larger than this many cells.
-    #[arg(long, default_value_t = DEFAULT_CELL_BUDGET)]
-    pub cell_budget: u64,
 }
 
 /// Reads `FIRST..END`.
@@ -205,7 +205,7 @@ pub fn realign(args: &RealignArgs, out: &mut dyn Write) -> Result<(), Error> {
         )
         .into());
     }
-    let session = Arc::new(load_session(&args.session)?);
+    let (session, _, builder) = args.run.load()?;
     if stretch.end > session.frames.len() {
         return Err(InputError::new(
             "--frames",
@@ -221,14 +221,6 @@ pub fn realign(args: &RealignArgs, out: &mut dyn Write) -> Result<(), Error> {
         )
         .into());
     }
-    let params = load_params(args.params.as_deref())?;
-    let builder = builder_for(
-        &session,
-        &params,
-        &args.session,
-        args.params.as_deref(),
-        args.cell_budget,
-    )?;
     let window = RealignWindow {
         reach: args.reach,
         turn: args.turn.to_radians(),
@@ -241,7 +233,7 @@ pub fn realign(args: &RealignArgs, out: &mut dyn Write) -> Result<(), Error> {
         &|_| {},
     )?;
     let fixed = diagnose::with_poses(&session, &r);
-    let written = fixed.save_as(&args.out, args.packed, Some(&args.session))?;
+    let written = fixed.save_as(&args.out, args.packed, Some(&args.run.session))?;
     let n = r.after.len() as f64;
     let (mut shift, mut turn) = (0.0, 0.0);
     for (a, b) in r.before.iter().zip(&r.after) {

@@ -4,28 +4,14 @@
 //! the last session restored, questions before work is lost, dropped references, cell
 //! histories saved as CSV, and measuring.
 
-use super::scratch;
+use super::{scratch, settle, window_harness};
 use egui::accesskit::Role;
 use egui_kittest::Harness;
 use egui_kittest::kittest::Queryable;
 use gridscope::app::{Action, Dialog, GridscopeApp, LastSession, Layer, Notice, Settings};
 
-fn harness_with(app: GridscopeApp) -> Harness<'static, GridscopeApp> {
-    let mut h = Harness::builder()
-        .with_size(egui::vec2(1480.0, 920.0))
-        .build_ui_state(|ui, app: &mut GridscopeApp| app.ui_root(ui), app);
-    settle(&mut h);
-    h
-}
-
 fn harness() -> Harness<'static, GridscopeApp> {
-    harness_with(GridscopeApp::with_demo(Settings::default()))
-}
-
-fn settle(h: &mut Harness<'static, GridscopeApp>) {
-    h.run_steps(2);
-    h.state_mut().wait_for_everything();
-    h.run_steps(2);
+    window_harness(GridscopeApp::with_demo(Settings::default()))
 }
 
 fn key(h: &mut Harness<'static, GridscopeApp>, key: egui::Key, modifiers: egui::Modifiers) {
@@ -261,7 +247,7 @@ fn the_last_session_frame_view_and_parameters_come_back() {
         }),
         ..Settings::default()
     };
-    let h = harness_with(GridscopeApp::restoring(settings));
+    let h = window_harness(GridscopeApp::restoring(settings));
     let app = h.state();
     let doc = app.doc.as_ref().unwrap();
     assert_eq!(doc.session.name, "Kestrel Yard glass partition");

@@ -95,3 +95,25 @@ pub fn enters_box(
     }
     (t0 < t1).then_some(t0)
 }
+
+/// The window's state in an egui_kittest harness (no display or GPU), at the size the window
+/// tests assume, once what `app` started has delivered.
+pub fn window_harness(
+    app: gridscope::app::GridscopeApp,
+) -> egui_kittest::Harness<'static, gridscope::app::GridscopeApp> {
+    let mut h = egui_kittest::Harness::builder()
+        .with_size(egui::vec2(1480.0, 920.0))
+        .build_ui_state(
+            |ui, app: &mut gridscope::app::GridscopeApp| app.ui_root(ui),
+            app,
+        );
+    settle(&mut h);
+    h
+}
+
+/// Runs frames until the file tasks, the worker and every panel's jobs have delivered.
+pub fn settle(h: &mut egui_kittest::Harness<'static, gridscope::app::GridscopeApp>) {
+    h.run_steps(2);
+    h.state_mut().wait_for_everything();
+    h.run_steps(2);
+}

@@ -4,7 +4,7 @@
 //! same figures the core computes, and every change it makes must be undoable and saved only
 //! under a new name.
 
-use super::scratch;
+use super::{scratch, settle, window_harness};
 use egui_kittest::Harness;
 use egui_kittest::kittest::Queryable;
 use gridscope::app::{Action, GridscopeApp, InspectorTab, Notice, Settings};
@@ -15,17 +15,7 @@ fn harness() -> Harness<'static, GridscopeApp> {
     let mut app = GridscopeApp::with_demo(Settings::default());
     app.wait_for_everything();
     app.apply(Action::OpenDemo("pose-slip"));
-    let mut h = Harness::builder()
-        .with_size(egui::vec2(1480.0, 920.0))
-        .build_ui_state(|ui, app: &mut GridscopeApp| app.ui_root(ui), app);
-    settle(&mut h);
-    h
-}
-
-fn settle(h: &mut Harness<'static, GridscopeApp>) {
-    h.run_steps(2);
-    h.state_mut().wait_for_everything();
-    h.run_steps(2);
+    window_harness(app)
 }
 
 #[test]

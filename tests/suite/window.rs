@@ -1,7 +1,7 @@
 //! The inspector window driven through egui_kittest (no display or GPU): the real application
 //! state, real widgets found by their labels.
 
-use super::scratch;
+use super::{scratch, settle, window_harness};
 use egui::accesskit::Role;
 use egui_kittest::Harness;
 use egui_kittest::kittest::Queryable;
@@ -9,19 +9,7 @@ use gridscope::app::{Action, GridscopeApp, Settings};
 use gridscope::{BeamRef, Reading};
 
 fn harness() -> Harness<'static, GridscopeApp> {
-    let app = GridscopeApp::with_demo(Settings::default());
-    let mut h = Harness::builder()
-        .with_size(egui::vec2(1480.0, 920.0))
-        .build_ui_state(|ui, app: &mut GridscopeApp| app.ui_root(ui), app);
-    settle(&mut h);
-    h
-}
-
-/// Runs frames until the file tasks and the worker have delivered.
-fn settle(h: &mut Harness<'static, GridscopeApp>) {
-    h.run_steps(2);
-    h.state_mut().wait_for_everything();
-    h.run_steps(2);
+    window_harness(GridscopeApp::with_demo(Settings::default()))
 }
 
 #[test]

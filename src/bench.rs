@@ -284,7 +284,9 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     say("seeking");
     let mut replay = Replay::new(builder.clone(), DEFAULT_SNAPSHOT_BUDGET);
     let never = AtomicBool::new(false);
+    let t = Instant::now();
     all.install(|| replay.state_before(n, &never, &mut |_, _, _| {}))?;
+    let first_pass_s = t.elapsed().as_secs_f64();
     // The first seek after the full pass takes its buffers fresh from the system (every grid
     // allocated so far is a snapshot still held); it is timed apart, and the 50 random seeks
     // measure the engine as the window uses it afterwards.
@@ -383,6 +385,12 @@ pub fn run(opts: &BenchOptions, say: &mut dyn FnMut(&str)) -> Result<Vec<(String
     put("seq_rebuild_s", format!("{seq_s:.3}"));
     put("par_rebuild_s", format!("{par_s:.3}"));
     put("snapshot_interval", replay.interval().to_string());
+    put("snapshots", replay.snapshot_count().to_string());
+    put(
+        "snapshot_mb",
+        format!("{:.1}", replay.snapshot_bytes() as f64 / (1 << 20) as f64),
+    );
+    put("replay_first_pass_s", format!("{first_pass_s:.2}"));
     put("seek_ms_first", format!("{seek_first:.2}"));
     put("ron_numbers_per_s", format!("{ron_rate:.4e}"));
     put(

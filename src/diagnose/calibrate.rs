@@ -318,19 +318,8 @@ pub fn calibrate(
                     .filter(|v| (v - start).abs() <= field.reach())
                     .map(|v| field.with(current, v))
                     .collect();
-                let scores: Vec<Result<f64, Error>> = tries
-                    .par_iter()
-                    .map(|c| {
-                        let s = objective.sharpness(*c, factor)?;
-                        let n = evaluations.fetch_add(1, Ordering::Relaxed) + 1;
-                        progress(FitProgress {
-                            evaluations: n,
-                            planned,
-                            best: best.max(s),
-                        });
-                        Ok(s)
-                    })
-                    .collect();
+                let scores: Vec<Result<f64, Error>> =
+                    tries.par_iter().map(|c| eval(*c, factor, best)).collect();
                 let mut moved = false;
                 for (c, s) in tries.iter().zip(scores) {
                     let s = s?;

@@ -151,19 +151,28 @@ fn the_frames_of_a_pose_slip_rank_lowest() {
     );
 }
 
-#[test]
-fn a_two_degree_mount_yaw_is_recovered_within_a_quarter_degree() {
-    let truth = 2f64.to_radians();
-    let (_, session) = run(sensor_fault(Pose2::new(0.0, 0.0, truth), 0.0));
-    let fit = calibrate(
+/// Fits one correction of the laser on a run simulated with this mount error and clock lag.
+fn fit_one(mount: Pose2, lag: f64, field: CalibrationField) -> super::Calibration {
+    let (_, session) = run(sensor_fault(mount, lag));
+    calibrate(
         &session,
         &Params::default(),
         "laser",
-        &[CalibrationField::MountTheta],
+        &[field],
         &never(),
         &|_| {},
     )
-    .unwrap();
+    .unwrap()
+}
+
+#[test]
+fn a_two_degree_mount_yaw_is_recovered_within_a_quarter_degree() {
+    let truth = 2f64.to_radians();
+    let fit = fit_one(
+        Pose2::new(0.0, 0.0, truth),
+        0.0,
+        CalibrationField::MountTheta,
+    );
     let err = (fit.after.mount_theta - truth).to_degrees();
     assert!(err.abs() <= 0.25, "off by {err} degrees: {fit:?}");
     assert!(fit.sharpness.1 > fit.sharpness.0, "{fit:?}");
@@ -172,16 +181,7 @@ fn a_two_degree_mount_yaw_is_recovered_within_a_quarter_degree() {
 
 #[test]
 fn a_forty_millisecond_lag_on_a_turning_robot_is_recovered_within_ten() {
-    let (_, session) = run(sensor_fault(Pose2::default(), 0.040));
-    let fit = calibrate(
-        &session,
-        &Params::default(),
-        "laser",
-        &[CalibrationField::TimeOffset],
-        &never(),
-        &|_| {},
-    )
-    .unwrap();
+    let fit = fit_one(Pose2::default(), 0.040, CalibrationField::TimeOffset);
     let err = fit.after.time_offset - 0.040;
     assert!(err.abs() <= 0.010, "off by {err} s: {fit:?}");
 }
